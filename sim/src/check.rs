@@ -1,0 +1,81 @@
+//! Derived quantities a modeller wants before spending compute: lattice size, memory estimate,
+//! time step, and the dimensionless numbers of each process.
+
+use crate::params::Params;
+use crate::scenario::LoadedScenario;
+use crate::tissue::Regions;
+
+/// One line of the check report.
+#[derive(Debug, Clone)]
+pub struct Derived {
+    pub section: &'static str,
+    pub name: String,
+    pub value: f64,
+    pub units: &'static str,
+    pub note: String,
+}
+
+fn d(section: &'static str, name: &str, value: f64, units: &'static str, note: &str) -> Derived {
+    Derived { section, name: name.to_string(), value, units, note: note.to_string() }
+}
+
+/// Computes the check report of a scenario.
+pub fn derived(loaded: &LoadedScenario) -> Vec<Derived> {
+    let p = Params::resolve(&loaded.scenario);
+    let l = &p.lattice;
+    let mut out = Vec::new();
+    let n = l.len() as f64;
+    let e = l.extent();
+    out.push(d("lattice", "voxels", n, "1", &format!("{} x {} x {}", l.n[0], l.n[1], l.n[2])));
+    out.push(d("lattice", "voxel edge", l.h * 1e6, "um", ""));
+    out.push(d(
+        "lattice",
+        "box",
+        e[0] * 1e3,
+        "mm",
+        &format!("{:.3} x {:.3} x {:.3} mm", e[0] * 1e3, e[1] * 1e3, e[2] * 1e3),
+    ));
+    let regions = Regions::from_geometry(l, &p.tumour);
+    let tv = regions.tumour_voxels() as f64;
+    out.push(d("tumour", "tumour voxels", tv, "1", &format!("{:.1} % of the lattice", 100.0 * tv / n)));
+    out.push(d("tumour", "tumour volume", tv * l.voxel_volume() * 1e9, "mm^3", "voxel count times voxel volume"));
+    out.push(d("tumour", "equivalent radius", p.tumour.equivalent_radius() * 1e6, "um", ""));
+    let cells = tv * p.cells.occupancy[1] + (n - tv) * p.cells.occupancy[0];
+    out.push(d("cells", "expected cells", cells, "1", "occupancy times voxels"));
+    // Memory: f64 fields and u8 labels per voxel, cells as entities with their components.
+    let field_bytes = n * (8.0 * FIELDS_F64 as f64 + 1.0);
+    let cell_bytes = cells * CELL_BYTES;
+    out.push(d("memory", "fields", field_bytes / 1e6, "MB", &format!("{FIELDS_F64} f64 fields and 1 label field")));
+    out.push(d("memory", "cells", cell_bytes / 1e6, "MB", "entities with kind, voxel, receptors and loads"));
+    out.push(d(
+        "memory",
+        "total estimate",
+        (field_bytes + cell_bytes) / 1e6,
+        "MB",
+        "excluding packets and solver work space",
+    ));
+    let steps = (p.run.end_time / p.run.time_step).ceil();
+    out.push(d("time", "time step", p.run.time_step, "s", "requested"));
+    out.push(d("time", "steps", steps, "1", "at the requested step"));
+    out.push(d("time", "snapshots", (p.run.end_time / p.run.snapshot_interval).ceil() + 1.0, "1", "including t = 0"));
+    out
+}
+
+/// f64 fields held per voxel by the engine's resources at this stage.
+const FIELDS_F64: usize = 3;
+/// Approximate bytes of one cell entity.
+const CELL_BYTES: f64 = 200.0;
+
+/// Renders the report as aligned text.
+pub fn render(rows: &[Derived]) -> String {
+    let mut s = String::new();
+    let mut section = "";
+    for r in rows {
+        if r.section != section {
+            section = r.section;
+            s.push_str(&format!("[{section}]\n"));
+        }
+        s.push_str(&format!("  {:<28} {:>14.6e} {:<8} {}\n", r.name, r.value, r.units, r.note));
+    }
+    s
+}

@@ -1,0 +1,157 @@
+//! Typed parameters in SI units, resolved once from a scenario. Each process reads its own struct.
+
+use bevy_ecs::prelude::Resource;
+
+use crate::lattice::Lattice;
+use crate::scenario::{Scenario, TumourShape};
+use crate::units::{HOUR, NM, UM};
+
+/// Run control.
+#[derive(Resource, Debug, Clone, PartialEq)]
+pub struct RunParams {
+    pub name: String,
+    pub seed: u64,
+    /// End of the delivery phase, s.
+    pub end_time: f64,
+    /// Requested transport step, s.
+    pub time_step: f64,
+    /// Interval between snapshots, s.
+    pub snapshot_interval: f64,
+}
+
+/// Tumour geometry: an axis-aligned ellipsoid (a sphere has equal semi-axes).
+#[derive(Resource, Debug, Clone, PartialEq)]
+pub struct TumourGeometry {
+    /// Centre, m.
+    pub centre: [f64; 3],
+    /// Semi-axes along x, y, z, m.
+    pub semi_axes: [f64; 3],
+}
+
+impl TumourGeometry {
+    /// Whether point `x` (m) lies inside the tumour.
+    pub fn contains(&self, x: [f64; 3]) -> bool {
+        self.level(x) <= 1.0
+    }
+
+    /// `sum((x - c)^2 / a^2)`: below 1 inside, 1 on the surface.
+    pub fn level(&self, x: [f64; 3]) -> f64 {
+        (0..3).map(|a| ((x[a] - self.centre[a]) / self.semi_axes[a]).powi(2)).sum()
+    }
+
+    /// An equivalent radius `(a b c)^(1/3)`, m.
+    pub fn equivalent_radius(&self) -> f64 {
+        (self.semi_axes[0] * self.semi_axes[1] * self.semi_axes[2]).cbrt()
+    }
+
+    /// Approximate signed distance to the surface (negative inside), m; exact for a sphere.
+    pub fn signed_distance(&self, x: [f64; 3]) -> f64 {
+        let l = self.level(x).sqrt();
+        // Distance along the ray from the centre, scaled by the local radius of the ellipsoid.
+        let r = (0..3).map(|a| (x[a] - self.centre[a]).powi(2)).sum::<f64>().sqrt();
+        if l == 0.0 {
+            return -self.semi_axes.iter().cloned().fold(f64::INFINITY, f64::min);
+        }
+        let surface_r = r / l;
+        r - surface_r
+    }
+}
+
+/// Extracellular matrix composition of host and tumour.
+#[derive(Resource, Debug, Clone, PartialEq)]
+pub struct MatrixParams {
+    /// Collagen fibre radius, m.
+    pub collagen_fibre_radius: f64,
+    /// Glycosaminoglycan chain radius, m.
+    pub gag_fibre_radius: f64,
+    /// Collagen volume fraction in host and tumour.
+    pub collagen_fraction: [f64; 2],
+    /// Glycosaminoglycan volume fraction in host and tumour.
+    pub gag_fraction: [f64; 2],
+    /// Interstitial fluid volume fraction in host and tumour.
+    pub porosity: [f64; 2],
+}
+
+/// Initial cell placement.
+#[derive(Resource, Debug, Clone, PartialEq)]
+pub struct CellParams {
+    /// Probability that a voxel holds a cell, host and tumour.
+    pub occupancy: [f64; 2],
+    /// Receptors per cell, host and cancer cells.
+    pub receptors: [f64; 2],
+}
+
+/// Output choices.
+#[derive(Resource, Debug, Clone, PartialEq)]
+pub struct OutputParams {
+    pub compression_level: u8,
+    pub packet_tables: bool,
+    pub cell_tables: bool,
+    pub xdmf_mesh: crate::scenario::XdmfMesh,
+}
+
+/// Every resolved parameter set of a scenario.
+#[derive(Debug, Clone)]
+pub struct Params {
+    pub run: RunParams,
+    pub lattice: Lattice,
+    pub tumour: TumourGeometry,
+    pub matrix: MatrixParams,
+    pub cells: CellParams,
+    pub output: OutputParams,
+}
+
+impl Params {
+    /// Whether the XDMF sidecar uses explicit hexahedra.
+    pub fn output_explicit_mesh(&self) -> bool {
+        match self.output.xdmf_mesh {
+            crate::scenario::XdmfMesh::Explicit => true,
+            crate::scenario::XdmfMesh::Regular => false,
+            crate::scenario::XdmfMesh::Auto => self.lattice.len() <= 1 << 18,
+        }
+    }
+
+    /// Converts a validated scenario to SI.
+    pub fn resolve(s: &Scenario) -> Self {
+        let lattice = Lattice::new(
+            s.lattice.shape,
+            s.lattice.voxel_um * UM,
+            [s.lattice.origin_um[0] * UM, s.lattice.origin_um[1] * UM, s.lattice.origin_um[2] * UM],
+        );
+        let centre =
+            s.tumour.centre_um.map(|c| [c[0] * UM, c[1] * UM, c[2] * UM]).unwrap_or_else(|| lattice.box_centre());
+        let semi_axes = match s.tumour.shape {
+            TumourShape::Sphere => [s.tumour.radius_um * UM; 3],
+            TumourShape::Ellipsoid => s.tumour.semi_axes_um.map(|v| v * UM),
+        };
+        let m = &s.matrix;
+        Params {
+            run: RunParams {
+                name: s.run.name.clone(),
+                seed: s.run.seed,
+                end_time: s.run.end_time_h * HOUR,
+                time_step: s.run.time_step_s,
+                snapshot_interval: s.run.snapshot_interval_h * HOUR,
+            },
+            lattice,
+            tumour: TumourGeometry { centre, semi_axes },
+            matrix: MatrixParams {
+                collagen_fibre_radius: m.collagen_fibre_radius_nm * NM,
+                gag_fibre_radius: m.gag_fibre_radius_nm * NM,
+                collagen_fraction: [m.host_collagen_fraction, m.tumour_collagen_fraction],
+                gag_fraction: [m.host_gag_fraction, m.tumour_gag_fraction],
+                porosity: [m.host_porosity, m.tumour_porosity],
+            },
+            cells: CellParams {
+                occupancy: [s.cells.host_cell_fraction, s.cells.tumour_cell_fraction],
+                receptors: [s.cells.host_receptors_per_cell, s.cells.cancer_receptors_per_cell],
+            },
+            output: OutputParams {
+                compression_level: s.output.compression_level as u8,
+                packet_tables: s.output.packet_tables,
+                cell_tables: s.output.cell_tables,
+                xdmf_mesh: s.output.xdmf_mesh,
+            },
+        }
+    }
+}

@@ -1,0 +1,15 @@
+//! The processes of a step, one module each. [`install`] adds each process's resources and
+//! systems to the world and schedule, in its [`crate::world::Phase`].
+
+pub mod output;
+
+use bevy_ecs::prelude::*;
+
+use crate::error::SimResult;
+use crate::params::Params;
+
+/// Adds every process of the scenario to the world and the step schedule.
+pub fn install(world: &mut World, schedule: &mut Schedule, params: &Params) -> SimResult<()> {
+    output::install(world, schedule, params);
+    Ok(())
+}

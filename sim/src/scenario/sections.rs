@@ -1,0 +1,236 @@
+//! The sections of a scenario file. Each key's unit is the end of its name; defaults and allowed
+//! values are declared here and nowhere else (see [`super::spec::section!`]).
+
+use serde::{Deserialize, Serialize};
+
+use super::spec::{Check, Checked, Problem, Section, checked_plain, section};
+
+section! {
+    /// Run control: name, seed, simulated time and output cadence.
+    pub struct RunSection {
+        /// Name of the run; the output file is `<name>.h5` in the output folder.
+        name: String = "interstice-run".to_string();
+        /// Seed from which every random stream of the run is derived.
+        seed: u64 = 1;
+        /// Simulated time of the delivery phase, hours.
+        end_time_h: f64 = 6.0, Check::above_upto(0.0, 1.0e4);
+        /// Transport time step, seconds; the engine uses a smaller step where stability needs it.
+        time_step_s: f64 = 20.0, Check::above_upto(0.0, 3600.0);
+        /// Interval between snapshots, hours.
+        snapshot_interval_h: f64 = 0.5, Check::above_upto(0.0, 1.0e4);
+    }
+}
+
+section! {
+    /// The Cartesian lattice: voxel counts along x, y, z, voxel edge and origin.
+    pub struct LatticeSection {
+        /// Voxels along x, y and z.
+        shape: [usize; 3] = [40, 40, 40], Check::count(3.0, 2048.0);
+        /// Edge of a cubic voxel, micrometres.
+        voxel_um: f64 = 20.0, Check::closed(0.5, 1000.0);
+        /// Position of the lattice's lower corner, micrometres.
+        origin_um: [f64; 3] = [0.0, 0.0, 0.0], Check::finite();
+    }
+}
+
+/// Shape of the tumour region.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum TumourShape {
+    /// A ball of radius `radius_um`.
+    Sphere,
+    /// An axis-aligned ellipsoid with semi-axes `semi_axes_um`.
+    Ellipsoid,
+}
+checked_plain!(TumourShape);
+
+section! {
+    /// Geometry of the tumour inside the host tissue.
+    pub struct TumourSection {
+        /// "sphere" or "ellipsoid".
+        shape: TumourShape = TumourShape::Sphere;
+        /// Centre, micrometres; defaults to the centre of the lattice.
+        centre_um: Option<[f64; 3]> = None, Check::finite();
+        /// Radius of a spherical tumour, micrometres.
+        radius_um: f64 = 250.0, Check::positive();
+        /// Semi-axes along x, y, z of an ellipsoidal tumour, micrometres.
+        semi_axes_um: [f64; 3] = [300.0, 250.0, 200.0], Check::positive();
+    }
+}
+
+section! {
+    /// Extracellular matrix: fibre volume fractions and fibre radii in host and tumour.
+    /// Collagen fibres set steric hindrance; glycosaminoglycan chains set hydraulic resistance.
+    pub struct MatrixSection {
+        /// Collagen fibre radius, nm.
+        collagen_fibre_radius_nm: f64 = 25.0, Check::closed(0.1, 1000.0);
+        /// Glycosaminoglycan chain radius, nm.
+        gag_fibre_radius_nm: f64 = 0.5, Check::closed(0.05, 100.0);
+        /// Collagen volume fraction in host tissue.
+        host_collagen_fraction: f64 = 0.02, Check::closed(0.0, 0.3);
+        /// Collagen volume fraction in the tumour.
+        tumour_collagen_fraction: f64 = 0.04, Check::closed(0.0, 0.3);
+        /// Glycosaminoglycan volume fraction in host tissue.
+        host_gag_fraction: f64 = 0.024, Check::closed(1.0e-5, 0.3);
+        /// Glycosaminoglycan volume fraction in the tumour.
+        tumour_gag_fraction: f64 = 0.007, Check::closed(1.0e-5, 0.3);
+        /// Interstitial (fluid) volume fraction of host tissue.
+        host_porosity: f64 = 0.2, Check::above_upto(0.0, 1.0);
+        /// Interstitial (fluid) volume fraction of the tumour.
+        tumour_porosity: f64 = 0.4, Check::above_upto(0.0, 1.0);
+    }
+}
+
+section! {
+    /// Cell agents placed at the start: at most one cell per voxel.
+    pub struct CellsSection {
+        /// Probability that a tumour voxel holds a cancer cell.
+        tumour_cell_fraction: f64 = 0.9, Check::fraction();
+        /// Probability that a host voxel holds a host cell.
+        host_cell_fraction: f64 = 0.6, Check::fraction();
+        /// Target receptors on each cancer cell.
+        cancer_receptors_per_cell: f64 = 1.0e5, Check::closed(0.0, 1.0e8);
+        /// Target receptors on each host cell.
+        host_receptors_per_cell: f64 = 1.0e3, Check::closed(0.0, 1.0e8);
+    }
+}
+
+/// Topology the XDMF sidecar describes.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum XdmfMesh {
+    /// Explicit hexahedra up to 262144 voxels (64^3), the regular grid above.
+    Auto,
+    /// Points and hexahedra stored in the run file: every XDMF reader understands it.
+    Explicit,
+    /// Origin and spacing only (3DCoRectMesh): compact, for large lattices.
+    Regular,
+}
+checked_plain!(XdmfMesh);
+
+section! {
+    /// What each snapshot writes.
+    pub struct OutputSection {
+        /// Deflate level of datasets, 0 (none) to 9; 1 is fastest with most of the gain.
+        compression_level: u32 = 1, Check::count(0.0, 9.0);
+        /// Write the packet table in every snapshot (large).
+        packet_tables: bool = false;
+        /// Write the cell table in every snapshot.
+        cell_tables: bool = true;
+        /// Topology of the XDMF sidecar: "auto", "explicit" or "regular".
+        xdmf_mesh: XdmfMesh = XdmfMesh::Auto;
+    }
+}
+
+/// A whole scenario as written in the file, before units are converted.
+#[derive(Debug, Clone, PartialEq, Default, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct Scenario {
+    pub run: RunSection,
+    pub lattice: LatticeSection,
+    pub tumour: TumourSection,
+    pub matrix: MatrixSection,
+    pub cells: CellsSection,
+    pub output: OutputSection,
+}
+
+impl Scenario {
+    /// Every section with its summary and keys, in file order.
+    pub fn sections() -> Vec<(&'static str, &'static str, Vec<super::KeySpec>)> {
+        vec![
+            ("run", RunSection::summary(), RunSection::keys()),
+            ("lattice", LatticeSection::summary(), LatticeSection::keys()),
+            ("tumour", TumourSection::summary(), TumourSection::keys()),
+            ("matrix", MatrixSection::summary(), MatrixSection::keys()),
+            ("cells", CellsSection::summary(), CellsSection::keys()),
+            ("output", OutputSection::summary(), OutputSection::keys()),
+        ]
+    }
+
+    /// Range checks of every key, then consistency checks between sections.
+    pub fn problems(&self, _file: Option<&std::path::Path>) -> Vec<Problem> {
+        let mut out = Vec::new();
+        self.run.check_into("run", None, &mut out);
+        self.lattice.check_into("lattice", None, &mut out);
+        self.tumour.check_into("tumour", None, &mut out);
+        self.matrix.check_into("matrix", None, &mut out);
+        self.cells.check_into("cells", None, &mut out);
+        self.output.check_into("output", None, &mut out);
+        if !out.is_empty() {
+            return out;
+        }
+        self.consistency(&mut out);
+        out
+    }
+
+    fn consistency(&self, out: &mut Vec<Problem>) {
+        let r = &self.run;
+        if r.snapshot_interval_h > r.end_time_h {
+            out.push(Problem {
+                path: "run.snapshot_interval_h".into(),
+                value: r.snapshot_interval_h.to_string(),
+                expected: format!("at most run.end_time_h = {}", r.end_time_h),
+                line: None,
+            });
+        }
+        if r.time_step_s > r.snapshot_interval_h * 3600.0 {
+            out.push(Problem {
+                path: "run.time_step_s".into(),
+                value: r.time_step_s.to_string(),
+                expected: format!("at most the snapshot interval ({} s)", r.snapshot_interval_h * 3600.0),
+                line: None,
+            });
+        }
+        if r.name.is_empty() || !r.name.chars().all(|c| c.is_ascii_alphanumeric() || "-_.".contains(c)) {
+            out.push(Problem {
+                path: "run.name".into(),
+                value: format!("{:?}", r.name),
+                expected: "a non-empty name of letters, digits, '-', '_' and '.'".into(),
+                line: None,
+            });
+        }
+        let l = &self.lattice;
+        let voxels: f64 = l.shape.iter().map(|&n| n as f64).product();
+        if voxels > 2.0e9 {
+            out.push(Problem {
+                path: "lattice.shape".into(),
+                value: format!("{:?}", l.shape),
+                expected: "at most 2e9 voxels in all".into(),
+                line: None,
+            });
+        }
+        // The tumour must fit inside the lattice.
+        let extent: Vec<f64> = (0..3).map(|a| l.shape[a] as f64 * l.voxel_um).collect();
+        let centre = self.tumour.centre_um.unwrap_or([
+            l.origin_um[0] + extent[0] / 2.0,
+            l.origin_um[1] + extent[1] / 2.0,
+            l.origin_um[2] + extent[2] / 2.0,
+        ]);
+        let semi = match self.tumour.shape {
+            TumourShape::Sphere => [self.tumour.radius_um; 3],
+            TumourShape::Ellipsoid => self.tumour.semi_axes_um,
+        };
+        let key = match self.tumour.shape {
+            TumourShape::Sphere => "tumour.radius_um",
+            TumourShape::Ellipsoid => "tumour.semi_axes_um",
+        };
+        for a in 0..3 {
+            let lo = centre[a] - semi[a];
+            let hi = centre[a] + semi[a];
+            if lo < l.origin_um[a] || hi > l.origin_um[a] + extent[a] {
+                out.push(Problem {
+                    path: key.into(),
+                    value: format!("{}", semi[a]),
+                    expected: format!(
+                        "a tumour inside the lattice: along {} it spans {lo} to {hi} um, the lattice {} to {} um",
+                        ["x", "y", "z"][a],
+                        l.origin_um[a],
+                        l.origin_um[a] + extent[a]
+                    ),
+                    line: None,
+                });
+                break;
+            }
+        }
+    }
+}

@@ -1,0 +1,221 @@
+//! The ECS world of a run and the schedule of one step.
+//!
+//! Data flows one way: scenario -> [`Params`] -> world (resources, entities) -> step -> snapshots.
+//! One step runs the process sets in the order of the physics:
+//!
+//! 1. [`Phase::Blood`]: blood flow in the vessel network and the plasma pool,
+//! 2. [`Phase::Pressure`]: interstitial fluid pressure and flow,
+//! 3. [`Phase::Exchange`]: transport across the vessel walls,
+//! 4. [`Phase::Transport`]: motion of particle packets through the interstitium,
+//! 5. [`Phase::Binding`]: binding to receptors and matrix, internalisation, uptake, drainage,
+//! 6. [`Phase::Interventions`]: scheduled changes of the model's parameters,
+//! 7. [`Phase::Advance`]: the clock moves on,
+//! 8. [`Phase::Output`]: snapshots when one is due.
+//!
+//! A process joins the schedule only when it does its real computation; each lives in its own
+//! module under [`crate::process`].
+
+use std::time::Instant;
+
+use bevy_ecs::prelude::*;
+use bevy_ecs::schedule::ScheduleLabel;
+
+use crate::error::{SimError, SimResult};
+use crate::lattice::Lattice;
+use crate::params::Params;
+use crate::process;
+use crate::progress::Progress;
+use crate::scenario::LoadedScenario;
+use crate::tissue::{Matrix, Regions, place_cells};
+
+/// The process sets of one step, in the order they run.
+#[derive(SystemSet, Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub enum Phase {
+    Blood,
+    Pressure,
+    Exchange,
+    Transport,
+    Binding,
+    Interventions,
+    Advance,
+    Output,
+}
+
+/// Label of the step schedule.
+#[derive(ScheduleLabel, Debug, Clone, PartialEq, Eq, Hash)]
+pub struct Step;
+
+/// Simulated time.
+#[derive(Resource, Debug, Clone, PartialEq)]
+pub struct Clock {
+    /// Current time, s.
+    pub time: f64,
+    /// Length of the step being taken, s.
+    pub dt: f64,
+    /// Steps completed.
+    pub step: u64,
+    /// Time of the next snapshot, s.
+    pub next_snapshot: f64,
+    /// Snapshots written.
+    pub snapshots: u64,
+    /// End of the run, s.
+    pub end: f64,
+}
+
+impl Clock {
+    /// Whether the run has reached its end (to a relative 1e-12).
+    pub fn done(&self) -> bool {
+        self.time >= self.end * (1.0 - 1e-12)
+    }
+}
+
+/// The run's seed, from which every random stream is derived.
+#[derive(Resource, Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Seed(pub u64);
+
+/// Names of the particle species of the run, in species order.
+#[derive(Resource, Debug, Clone, Default)]
+pub struct SpeciesNames(pub Vec<String>);
+
+/// Errors raised by systems; the driver stops the run at the first one.
+#[derive(Resource, Debug, Default)]
+pub struct Faults(pub Vec<SimError>);
+
+/// Options of a run that are not part of the scenario (they do not change results).
+#[derive(Debug, Clone)]
+pub struct RunOptions {
+    /// Folder of the run file.
+    pub out_dir: std::path::PathBuf,
+    /// Worker threads (0: all cores). Results do not depend on it.
+    pub threads: usize,
+    /// No progress output at all.
+    pub quiet: bool,
+}
+
+/// What a finished run reports.
+#[derive(Debug, Clone)]
+pub struct RunSummary {
+    pub file: std::path::PathBuf,
+    pub steps: u64,
+    pub snapshots: u64,
+    pub wall_time_s: f64,
+}
+
+/// A run: its world and its step schedule.
+pub struct Simulation {
+    pub world: World,
+    pub schedule: Schedule,
+    pub params: Params,
+}
+
+impl Simulation {
+    /// Builds the world of a scenario: terrain, entities and process resources.
+    pub fn new(loaded: &LoadedScenario) -> SimResult<Self> {
+        let params = Params::resolve(&loaded.scenario);
+        let mut world = World::new();
+        let lattice = params.lattice.clone();
+        let regions = Regions::from_geometry(&lattice, &params.tumour);
+        let matrix = Matrix::from_regions(&regions, &params.matrix);
+        place_cells(&mut world, &lattice, &regions, &params.cells, params.run.seed);
+        world.insert_resource(lattice);
+        world.insert_resource(regions);
+        world.insert_resource(matrix);
+        world.insert_resource(params.run.clone());
+        world.insert_resource(params.tumour.clone());
+        world.insert_resource(params.matrix.clone());
+        world.insert_resource(params.output.clone());
+        world.insert_resource(Seed(params.run.seed));
+        world.insert_resource(Faults::default());
+        world.insert_resource(Clock {
+            time: 0.0,
+            dt: params.run.time_step,
+            step: 0,
+            next_snapshot: 0.0,
+            snapshots: 0,
+            end: params.run.end_time,
+        });
+
+        let mut schedule = Schedule::new(Step);
+        schedule.configure_sets(
+            (
+                Phase::Blood,
+                Phase::Pressure,
+                Phase::Exchange,
+                Phase::Transport,
+                Phase::Binding,
+                Phase::Interventions,
+                Phase::Advance,
+                Phase::Output,
+            )
+                .chain(),
+        );
+        process::install(&mut world, &mut schedule, &params)?;
+        schedule.add_systems(advance_clock.in_set(Phase::Advance));
+        Ok(Simulation { world, schedule, params })
+    }
+
+    /// The lattice of the run.
+    pub fn lattice(&self) -> &Lattice {
+        self.world.resource::<Lattice>()
+    }
+
+    /// Runs one step; returns the first fault a system raised.
+    pub fn step(&mut self) -> SimResult<()> {
+        {
+            let mut clock = self.world.resource_mut::<Clock>();
+            let target = clock.next_snapshot.min(clock.end);
+            let remaining = target - clock.time;
+            let base = self.params.run.time_step;
+            // Land exactly on snapshot times; avoid a sliver of a step just before one.
+            clock.dt = if remaining <= base * (1.0 + 1e-9) { remaining.max(0.0) } else { base.min(remaining) };
+        }
+        self.schedule.run(&mut self.world);
+        let mut faults = self.world.resource_mut::<Faults>();
+        if let Some(e) = faults.0.drain(..).next() {
+            return Err(e);
+        }
+        Ok(())
+    }
+
+    /// Runs to the end: opens the run file, writes the initial snapshot, steps, closes the file.
+    pub fn run(&mut self, loaded: &LoadedScenario, opts: &RunOptions) -> SimResult<RunSummary> {
+        let started = Instant::now();
+        let threads = if opts.threads == 0 { rayon::current_num_threads() } else { opts.threads };
+        let file = process::output::open_run_file(self, loaded, opts, threads)?;
+        let end = self.params.run.end_time;
+        let mut progress = Progress::new(end, opts.quiet);
+        let result = (|| -> SimResult<()> {
+            process::output::write_snapshot(&mut self.world)?;
+            while !self.world.resource::<Clock>().done() {
+                self.step()?;
+                let c = self.world.resource::<Clock>();
+                progress.update(c.time, c.step, c.snapshots);
+            }
+            Ok(())
+        })();
+        let wall = started.elapsed().as_secs_f64();
+        progress.finish(result.is_ok());
+        let status = match &result {
+            Ok(()) => "finished".to_string(),
+            Err(e) => format!("failed: {e}"),
+        };
+        let snapshots = self.world.resource::<Clock>().snapshots;
+        let steps = self.world.resource::<Clock>().step;
+        process::output::close_run_file(&mut self.world, &status, wall)?;
+        result?;
+        Ok(RunSummary { file, steps, snapshots, wall_time_s: wall })
+    }
+}
+
+/// Moves the clock by the step just taken.
+pub fn advance_clock(mut clock: ResMut<Clock>) {
+    clock.time += clock.dt;
+    clock.step += 1;
+    // Snap to the snapshot time when within rounding of it.
+    if (clock.time - clock.next_snapshot).abs() <= 1e-9 * clock.next_snapshot.max(1.0) {
+        clock.time = clock.next_snapshot;
+    }
+    if (clock.time - clock.end).abs() <= 1e-9 * clock.end.max(1.0) {
+        clock.time = clock.end;
+    }
+}
