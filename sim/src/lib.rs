@@ -19,6 +19,7 @@ pub mod rng;
 pub mod scenario;
 pub mod tissue;
 pub mod units;
+pub mod vascular;
 pub mod world;
 
 pub use error::{SimError, SimResult};

@@ -4,7 +4,7 @@ use bevy_ecs::prelude::Resource;
 
 use crate::lattice::Lattice;
 use crate::scenario::{Scenario, TumourShape};
-use crate::units::{HOUR, NM, UM};
+use crate::units::{CM, HOUR, MMHG, NM, UM, cm_per_mmhg_s};
 
 /// Run control.
 #[derive(Resource, Debug, Clone, PartialEq)]
@@ -81,6 +81,35 @@ pub struct CellParams {
     pub receptors: [f64; 2],
 }
 
+/// Starling forces by region (index 0 host, 1 tumour).
+#[derive(Resource, Debug, Clone, PartialEq)]
+pub struct StarlingParams {
+    /// Plasma oncotic pressure, Pa.
+    pub plasma_oncotic: f64,
+    /// Interstitial oncotic pressure, Pa.
+    pub interstitial_oncotic: [f64; 2],
+    /// Protein reflection coefficient.
+    pub protein_reflection: [f64; 2],
+}
+
+impl StarlingParams {
+    /// Oncotic term `sigma_T (pi_v - pi_i)` of a region, Pa.
+    pub fn oncotic_term(&self, region: usize) -> f64 {
+        self.protein_reflection[region] * (self.plasma_oncotic - self.interstitial_oncotic[region])
+    }
+}
+
+/// The continuum vessel model: wall surface spread uniformly through each region.
+#[derive(Resource, Debug, Clone, PartialEq)]
+pub struct ContinuumVesselParams {
+    /// Vessel surface per tissue volume, 1/m, host and tumour.
+    pub surface_per_volume: [f64; 2],
+    /// Wall hydraulic conductivity Lp, m/(Pa s), host and tumour.
+    pub wall_conductivity: [f64; 2],
+    /// Vascular pressure, Pa.
+    pub vascular_pressure: f64,
+}
+
 /// Output choices.
 #[derive(Resource, Debug, Clone, PartialEq)]
 pub struct OutputParams {
@@ -98,6 +127,9 @@ pub struct Params {
     pub tumour: TumourGeometry,
     pub matrix: MatrixParams,
     pub cells: CellParams,
+    pub starling: StarlingParams,
+    pub vessel_model: crate::scenario::VesselModel,
+    pub continuum_vessels: ContinuumVesselParams,
     pub output: OutputParams,
 }
 
@@ -145,6 +177,29 @@ impl Params {
             cells: CellParams {
                 occupancy: [s.cells.host_cell_fraction, s.cells.tumour_cell_fraction],
                 receptors: [s.cells.host_receptors_per_cell, s.cells.cancer_receptors_per_cell],
+            },
+            starling: StarlingParams {
+                plasma_oncotic: s.starling.plasma_oncotic_mmHg * MMHG,
+                interstitial_oncotic: [
+                    s.starling.host_interstitial_oncotic_mmHg * MMHG,
+                    s.starling.tumour_interstitial_oncotic_mmHg * MMHG,
+                ],
+                protein_reflection: [s.starling.host_protein_reflection, s.starling.tumour_protein_reflection],
+            },
+            vessel_model: s.vessels.model,
+            continuum_vessels: {
+                let c = &s.vessels.continuum;
+                ContinuumVesselParams {
+                    surface_per_volume: [
+                        c.host_surface_per_volume_per_cm / CM,
+                        c.tumour_surface_per_volume_per_cm / CM,
+                    ],
+                    wall_conductivity: [
+                        cm_per_mmhg_s(c.host_wall_conductivity_cm_per_mmHg_s),
+                        cm_per_mmhg_s(c.tumour_wall_conductivity_cm_per_mmHg_s),
+                    ],
+                    vascular_pressure: c.vascular_pressure_mmHg * MMHG,
+                }
             },
             output: OutputParams {
                 compression_level: s.output.compression_level as u8,

@@ -221,11 +221,14 @@ pub fn defaults_table() -> String {
         out.push_str(&format!("[{name}]  # {}\n", summary.trim()));
         let table = name.split('.').try_fold(&value, |v, k| v.get(k.trim_start_matches("[[").trim_end_matches("]]")));
         for k in keys {
-            let shown = table
+            let value = table
                 .and_then(|t| if let toml::Value::Array(a) = t { a.first() } else { Some(t) })
-                .and_then(|t| t.get(k.key))
-                .map(|v| v.to_string())
-                .unwrap_or_else(|| "(none)".into());
+                .and_then(|t| t.get(k.key));
+            if let Some(toml::Value::Table(_)) = value {
+                out.push_str(&format!("# {}: see [{name}.{}]\n", k.key, k.key));
+                continue;
+            }
+            let shown = value.map(|v| v.to_string()).unwrap_or_else(|| "(none)".into());
             out.push_str(&format!("{} = {}", k.key, shown));
             if let Some(c) = &k.check {
                 out.push_str(&format!("    # {c}"));

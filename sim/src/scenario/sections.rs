@@ -82,6 +82,59 @@ section! {
 }
 
 section! {
+    /// Starling forces across the vessel wall: oncotic pressures and protein reflection, by region.
+    pub struct StarlingSection {
+        /// Oncotic pressure of plasma, mmHg.
+        plasma_oncotic_mmHg: f64 = 20.0, Check::closed(0.0, 100.0);
+        /// Oncotic pressure of host interstitial fluid, mmHg.
+        host_interstitial_oncotic_mmHg: f64 = 10.0, Check::closed(0.0, 100.0);
+        /// Oncotic pressure of tumour interstitial fluid, mmHg.
+        tumour_interstitial_oncotic_mmHg: f64 = 15.0, Check::closed(0.0, 100.0);
+        /// Osmotic reflection coefficient of plasma proteins at host vessel walls.
+        host_protein_reflection: f64 = 0.91, Check::fraction();
+        /// Osmotic reflection coefficient of plasma proteins at tumour vessel walls.
+        tumour_protein_reflection: f64 = 0.82, Check::fraction();
+    }
+}
+
+/// How vessels are represented.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum VesselModel {
+    /// Vessel surface spread uniformly over each region (surface per volume), as in lumped models.
+    Continuum,
+    /// Explicit vessel segments, generated or imported, with blood flow.
+    Network,
+}
+checked_plain!(VesselModel);
+
+section! {
+    /// Vessel walls spread uniformly through each region (the `continuum` vessel model).
+    pub struct ContinuumVesselsSection {
+        /// Vessel surface per tissue volume in host tissue, 1/cm.
+        host_surface_per_volume_per_cm: f64 = 70.0, Check::closed(0.0, 1.0e4);
+        /// Vessel surface per tissue volume in the tumour, 1/cm.
+        tumour_surface_per_volume_per_cm: f64 = 200.0, Check::closed(0.0, 1.0e4);
+        /// Hydraulic conductivity of host vessel walls, cm/(mmHg s).
+        host_wall_conductivity_cm_per_mmHg_s: f64 = 0.36e-7, Check::closed(0.0, 1.0e-3);
+        /// Hydraulic conductivity of tumour vessel walls, cm/(mmHg s).
+        tumour_wall_conductivity_cm_per_mmHg_s: f64 = 2.8e-7, Check::closed(0.0, 1.0e-3);
+        /// Vascular (capillary) pressure, mmHg.
+        vascular_pressure_mmHg: f64 = 25.0, Check::closed(0.0, 200.0);
+    }
+}
+
+section! {
+    /// Blood vessels: which model, and its parameters.
+    pub struct VesselsSection {
+        /// "continuum" or "network".
+        model: VesselModel = VesselModel::Continuum;
+        /// Parameters of the continuum model.
+        continuum: ContinuumVesselsSection = ContinuumVesselsSection::default();
+    }
+}
+
+section! {
     /// Cell agents placed at the start: at most one cell per voxel.
     pub struct CellsSection {
         /// Probability that a tumour voxel holds a cancer cell.
@@ -131,6 +184,8 @@ pub struct Scenario {
     pub tumour: TumourSection,
     pub matrix: MatrixSection,
     pub cells: CellsSection,
+    pub starling: StarlingSection,
+    pub vessels: VesselsSection,
     pub output: OutputSection,
 }
 
@@ -143,6 +198,9 @@ impl Scenario {
             ("tumour", TumourSection::summary(), TumourSection::keys()),
             ("matrix", MatrixSection::summary(), MatrixSection::keys()),
             ("cells", CellsSection::summary(), CellsSection::keys()),
+            ("starling", StarlingSection::summary(), StarlingSection::keys()),
+            ("vessels", VesselsSection::summary(), VesselsSection::keys()),
+            ("vessels.continuum", ContinuumVesselsSection::summary(), ContinuumVesselsSection::keys()),
             ("output", OutputSection::summary(), OutputSection::keys()),
         ]
     }
@@ -155,6 +213,8 @@ impl Scenario {
         self.tumour.check_into("tumour", None, &mut out);
         self.matrix.check_into("matrix", None, &mut out);
         self.cells.check_into("cells", None, &mut out);
+        self.starling.check_into("starling", None, &mut out);
+        self.vessels.check_into("vessels", None, &mut out);
         self.output.check_into("output", None, &mut out);
         if !out.is_empty() {
             return out;

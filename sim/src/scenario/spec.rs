@@ -199,6 +199,7 @@ macro_rules! section {
         $(#[doc = $sdoc])*
         #[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
         #[serde(deny_unknown_fields, default)]
+        #[allow(non_snake_case)] // unit suffixes keep their usual spelling: `_mmHg`, `_per_M_s`
         pub struct $name {
             $( $(#[doc = $doc])* $(#[serde($($sattr)*)])* pub $field: $ty, )*
         }
