@@ -14,7 +14,7 @@ use std::path::{Path, PathBuf};
 
 pub use sections::*;
 use spans::SpanIndex;
-pub use spec::{Check, KeySpec, Problem, Section};
+pub use spec::{Check, KeySpec, Problem, Section, SectionDoc};
 
 /// Why a scenario could not be used.
 #[derive(Debug, Clone, thiserror::Error)]
@@ -215,21 +215,19 @@ impl LoadedScenario {
 /// Renders every section's keys with defaults, units and allowed values: the one table of defaults.
 pub fn defaults_table() -> String {
     let mut out = String::new();
-    let defaults = Scenario::default();
-    let value = toml::Value::try_from(&defaults).expect("default scenario serialises");
-    for (name, summary, keys) in Scenario::sections() {
-        out.push_str(&format!("[{name}]  # {}\n", summary.trim()));
-        let table = name.split('.').try_fold(&value, |v, k| v.get(k.trim_start_matches("[[").trim_end_matches("]]")));
-        for k in keys {
-            let value = table
-                .and_then(|t| if let toml::Value::Array(a) = t { a.first() } else { Some(t) })
-                .and_then(|t| t.get(k.key));
+    for sec in Scenario::sections() {
+        let header = if sec.name.starts_with("[[") { sec.name.to_string() } else { format!("[{}]", sec.name) };
+        out.push_str(&format!("{header}  # {}\n", sec.summary.trim()));
+        for k in &sec.keys {
+            let value = sec.defaults.get(k.key);
             if let Some(toml::Value::Table(_)) = value {
-                out.push_str(&format!("# {}: see [{name}.{}]\n", k.key, k.key));
+                out.push_str(&format!("# {}: see [{}.{}]\n", k.key, sec.name.trim_matches(['[', ']']), k.key));
                 continue;
             }
-            let shown = value.map(|v| v.to_string()).unwrap_or_else(|| "(none)".into());
-            out.push_str(&format!("{} = {}", k.key, shown));
+            match value {
+                Some(v) => out.push_str(&format!("{} = {v}", k.key)),
+                None => out.push_str(&format!("# {} = (not set)", k.key)),
+            }
             if let Some(c) = &k.check {
                 out.push_str(&format!("    # {c}"));
             }

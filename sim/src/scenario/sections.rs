@@ -3,7 +3,7 @@
 
 use serde::{Deserialize, Serialize};
 
-use super::spec::{Check, Checked, Problem, Section, checked_plain, section};
+use super::spec::{Check, Checked, Problem, SectionDoc, checked_plain, section};
 
 section! {
     /// Run control: name, seed, simulated time and output cadence.
@@ -134,6 +134,64 @@ section! {
     }
 }
 
+/// Surface coating of a particle.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Coating {
+    /// Bare surface: opsonised and cleared by phagocytes.
+    None,
+    /// A stealth polymer brush (for example polyethylene glycol) that hides it from opsonins.
+    Stealth,
+}
+checked_plain!(Coating);
+
+/// Which cells carry the receptor a ligand targets.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum ReceptorTarget {
+    /// The receptor of cancer cells (`cells.cancer_receptors_per_cell`).
+    Cancer,
+    /// The receptor of host cells (`cells.host_receptors_per_cell`).
+    Host,
+}
+checked_plain!(ReceptorTarget);
+
+section! {
+    /// A targeting ligand on a particle.
+    pub struct LigandSection {
+        /// Which cells carry the targeted receptor: "cancer" or "host".
+        receptor: ReceptorTarget = ReceptorTarget::Cancer;
+        /// Association rate constant of one ligand with one receptor, 1/(M s).
+        kon_per_M_s: f64 = 1.0e5, Check::closed(0.0, 1.0e10);
+        /// Dissociation rate constant of one ligand-receptor bond, 1/s.
+        koff_per_s: f64 = 1.0e-4, Check::closed(0.0, 1.0e3);
+        /// Ligands that can engage receptors at once (1 = monovalent).
+        valency: u32 = 1, Check::count(1.0, 100.0);
+        /// Internalisation rate of bound particles, 1/s.
+        internalisation_per_s: f64 = 1.0e-4, Check::closed(0.0, 10.0);
+    }
+}
+
+section! {
+    /// One particle design: a species of its own in every output.
+    pub struct ParticleSection {
+        /// Name of the species in outputs (letters, digits, '-', '_').
+        name: String = "particle".to_string();
+        /// Hydrodynamic radius (core plus coating), nm.
+        hydrodynamic_radius_nm: f64 = 50.0, Check::closed(0.5, 2000.0);
+        /// Surface (zeta) potential, mV; its sign is the sign of the surface charge.
+        surface_potential_mV: f64 = -10.0, Check::closed(-200.0, 200.0);
+        /// Surface coating: "none" or "stealth".
+        coating: Coating = Coating::Stealth;
+        /// Particles given in one intravenous bolus at t = 0.
+        dose_particles: f64 = 1.0e13, Check::closed(0.0, 1.0e20);
+        /// Particles carried by one packet in the tissue.
+        packet_particles: f64 = 1.0e4, Check::closed(1.0, 1.0e15);
+        /// Targeting ligand; absent for an untargeted design.
+        ligand: Option<LigandSection> = None;
+    }
+}
+
 section! {
     /// Cell agents placed at the start: at most one cell per voxel.
     pub struct CellsSection {
@@ -186,22 +244,26 @@ pub struct Scenario {
     pub cells: CellsSection,
     pub starling: StarlingSection,
     pub vessels: VesselsSection,
+    /// Particle designs, one `[[particle]]` table each.
+    pub particle: Vec<ParticleSection>,
     pub output: OutputSection,
 }
 
 impl Scenario {
-    /// Every section with its summary and keys, in file order.
-    pub fn sections() -> Vec<(&'static str, &'static str, Vec<super::KeySpec>)> {
+    /// Every section with its summary, keys and defaults, in file order.
+    pub fn sections() -> Vec<SectionDoc> {
         vec![
-            ("run", RunSection::summary(), RunSection::keys()),
-            ("lattice", LatticeSection::summary(), LatticeSection::keys()),
-            ("tumour", TumourSection::summary(), TumourSection::keys()),
-            ("matrix", MatrixSection::summary(), MatrixSection::keys()),
-            ("cells", CellsSection::summary(), CellsSection::keys()),
-            ("starling", StarlingSection::summary(), StarlingSection::keys()),
-            ("vessels", VesselsSection::summary(), VesselsSection::keys()),
-            ("vessels.continuum", ContinuumVesselsSection::summary(), ContinuumVesselsSection::keys()),
-            ("output", OutputSection::summary(), OutputSection::keys()),
+            SectionDoc::of::<RunSection>("run"),
+            SectionDoc::of::<LatticeSection>("lattice"),
+            SectionDoc::of::<TumourSection>("tumour"),
+            SectionDoc::of::<MatrixSection>("matrix"),
+            SectionDoc::of::<CellsSection>("cells"),
+            SectionDoc::of::<StarlingSection>("starling"),
+            SectionDoc::of::<VesselsSection>("vessels"),
+            SectionDoc::of::<ContinuumVesselsSection>("vessels.continuum"),
+            SectionDoc::of::<ParticleSection>("[[particle]]"),
+            SectionDoc::of::<LigandSection>("particle.ligand"),
+            SectionDoc::of::<OutputSection>("output"),
         ]
     }
 
@@ -215,6 +277,7 @@ impl Scenario {
         self.cells.check_into("cells", None, &mut out);
         self.starling.check_into("starling", None, &mut out);
         self.vessels.check_into("vessels", None, &mut out);
+        self.particle.check_into("particle", None, &mut out);
         self.output.check_into("output", None, &mut out);
         if !out.is_empty() {
             return out;
@@ -246,6 +309,32 @@ impl Scenario {
                 path: "run.name".into(),
                 value: format!("{:?}", r.name),
                 expected: "a non-empty name of letters, digits, '-', '_' and '.'".into(),
+                line: None,
+            });
+        }
+        let mut names = std::collections::BTreeSet::new();
+        for (i, p) in self.particle.iter().enumerate() {
+            if p.name.is_empty() || !p.name.chars().all(|c| c.is_ascii_alphanumeric() || "-_".contains(c)) {
+                out.push(Problem {
+                    path: format!("particle[{i}].name"),
+                    value: format!("{:?}", p.name),
+                    expected: "a non-empty name of letters, digits, '-' and '_'".into(),
+                    line: None,
+                });
+            } else if !names.insert(p.name.clone()) {
+                out.push(Problem {
+                    path: format!("particle[{i}].name"),
+                    value: format!("{:?}", p.name),
+                    expected: "a name no other particle design uses".into(),
+                    line: None,
+                });
+            }
+        }
+        if self.particle.len() > crate::tissue::MAX_SPECIES {
+            out.push(Problem {
+                path: "particle".into(),
+                value: format!("{} designs", self.particle.len()),
+                expected: format!("at most {} particle designs", crate::tissue::MAX_SPECIES),
                 line: None,
             });
         }

@@ -63,19 +63,24 @@ impl Check {
     }
 }
 
+/// A number as a person reads it: plain for everyday magnitudes, scientific otherwise.
+pub fn human(x: f64) -> String {
+    if x != 0.0 && (x.abs() >= 1e5 || x.abs() < 1e-3) { format!("{x:e}") } else { format!("{x}") }
+}
+
 impl fmt::Display for Check {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         let what = if self.integer { "a whole number" } else { "a finite number" };
         match (self.lo.is_finite(), self.hi.is_finite()) {
             (false, false) => write!(f, "{what}"),
-            (true, false) => write!(f, "{what} {} {}", if self.lo_open { ">" } else { ">=" }, self.lo),
-            (false, true) => write!(f, "{what} {} {}", if self.hi_open { "<" } else { "<=" }, self.hi),
+            (true, false) => write!(f, "{what} {} {}", if self.lo_open { ">" } else { ">=" }, human(self.lo)),
+            (false, true) => write!(f, "{what} {} {}", if self.hi_open { "<" } else { "<=" }, human(self.hi)),
             (true, true) => write!(
                 f,
                 "{what} in {}{}, {}{}",
                 if self.lo_open { "(" } else { "[" },
-                self.lo,
-                self.hi,
+                human(self.lo),
+                human(self.hi),
                 if self.hi_open { ")" } else { "]" }
             ),
         }
@@ -176,6 +181,28 @@ pub trait Section: Checked + Default + serde::Serialize {
     fn keys() -> Vec<KeySpec>;
     /// A one-line summary of the section.
     fn summary() -> &'static str;
+}
+
+/// Documentation of one section for the `defaults` command.
+pub struct SectionDoc {
+    /// Name as written in a file (`run`, `vessels.continuum`, `[[particle]]`).
+    pub name: &'static str,
+    pub summary: &'static str,
+    pub keys: Vec<KeySpec>,
+    /// The section's defaults.
+    pub defaults: toml::Value,
+}
+
+impl SectionDoc {
+    /// The documentation of section type `T` written as `name`.
+    pub fn of<T: Section>(name: &'static str) -> Self {
+        SectionDoc {
+            name,
+            summary: T::summary(),
+            keys: T::keys(),
+            defaults: toml::Value::try_from(T::default()).expect("section defaults serialise"),
+        }
+    }
 }
 
 /// Joins a path and a key.

@@ -123,26 +123,39 @@ fn several_problems_are_all_reported() {
 #[test]
 fn defaults_table_documents_every_key() {
     let t = defaults_table();
-    for (name, _, keys) in Scenario::sections() {
-        assert!(t.contains(&format!("[{name}]")), "{name}");
-        for k in keys {
+    for sec in Scenario::sections() {
+        assert!(t.contains(sec.name), "{}", sec.name);
+        for k in &sec.keys {
             assert!(
-                t.contains(&format!("\n{} = ", k.key)) || t.contains(&format!("\n# {}: see", k.key)),
-                "{name}.{}",
+                t.contains(&format!("\n{} = ", k.key))
+                    || t.contains(&format!("\n# {}: see", k.key))
+                    || t.contains(&format!("\n# {} = (not set)", k.key)),
+                "{}.{}",
+                sec.name,
                 k.key
             );
-            assert!(!k.doc.trim().is_empty(), "{name}.{} has no documentation", k.key);
+            assert!(!k.doc.trim().is_empty(), "{}.{} has no documentation", sec.name, k.key);
         }
-    }
-    // Every key of the serialised default scenario is declared in a section spec.
-    let v = toml::Value::try_from(Scenario::default()).unwrap();
-    for (name, _, keys) in Scenario::sections() {
-        if let Some(toml::Value::Table(t)) = v.get(name) {
-            for k in t.keys() {
-                assert!(keys.iter().any(|s| s.key == k), "{name}.{k} is not in the spec");
+        // Every key of the serialised defaults is declared in the spec.
+        if let toml::Value::Table(tab) = &sec.defaults {
+            for key in tab.keys() {
+                assert!(sec.keys.iter().any(|s| s.key == key), "{}.{key} is not in the spec", sec.name);
             }
         }
     }
+}
+
+#[test]
+fn particle_designs_are_checked() {
+    let (p, msg) =
+        only_problem("[[particle]]\nname = \"a\"\n[[particle]]\nname = \"b\"\nhydrodynamic_radius_nm = 0.0\n");
+    assert_eq!(p.path, "particle[1].hydrodynamic_radius_nm", "{msg}");
+    assert_eq!(p.line, Some(5), "{msg}");
+    let (p, msg) = only_problem("[[particle]]\nname = \"a\"\n[[particle]]\nname = \"a\"\n");
+    assert_eq!(p.path, "particle[1].name", "{msg}");
+    let (p, msg) = only_problem("[[particle]]\nname = \"a\"\n[particle.ligand]\nvalency = 0\n");
+    assert_eq!(p.path, "particle[0].ligand.valency", "{msg}");
+    assert_eq!(p.line, Some(4), "{msg}");
 }
 
 #[test]
