@@ -12,6 +12,7 @@ pub mod field;
 pub mod io;
 pub mod lattice;
 pub mod params;
+pub mod particles;
 pub mod process;
 pub mod progress;
 pub mod provenance;

@@ -1,7 +1,10 @@
 //! The processes of a step, one module each. [`install`] adds each process's resources and
 //! systems to the world and schedule, in its [`crate::world::Phase`].
 
+pub mod accounting;
+pub mod binding;
 pub mod output;
+pub mod transport;
 
 use bevy_ecs::prelude::*;
 
@@ -11,5 +14,9 @@ use crate::params::Params;
 /// Adds every process of the scenario to the world and the step schedule.
 pub fn install(world: &mut World, schedule: &mut Schedule, params: &Params) -> SimResult<()> {
     output::install(world, schedule, params);
+    world.insert_resource(params.designs.clone());
+    accounting::install(world);
+    transport::install(world, schedule, params);
+    binding::install(world, schedule, params);
     Ok(())
 }
