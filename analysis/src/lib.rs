@@ -7,17 +7,24 @@
 //! - [`metrics`]: per-species metrics over time ([`metrics::analyse`]).
 //! - [`kdtree`], [`geometry`]: distances to perfused vessels and to the tumour surface.
 //! - [`tables`]: tidy CSV.
+//! - [`figures`]: which curves a run's figures show.
 //! - [`plot`], [`colour`]: time courses, profiles, coverage curves and field slices.
 //! - [`report`]: the run report and the comparison page.
 //! - [`cli`]: what the `interstice` subcommands call.
 //! - [`synthetic`]: writes small run files following the layout (tests, benchmarks, examples).
 
+pub mod cli;
+pub mod colour;
 pub mod error;
+pub mod figures;
 pub mod geometry;
 pub mod kdtree;
 pub mod metrics;
+pub mod plot;
+pub mod report;
 pub mod runfile;
 pub mod stats;
+pub mod synthetic;
 pub mod tables;
 
 pub use error::{AnalysisError, Result};

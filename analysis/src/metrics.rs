@@ -341,6 +341,14 @@ pub struct RunMetrics {
     pub series: Vec<Series>,
     /// What could not be computed, and why.
     pub notes: Vec<String>,
+    /// `/provenance` attributes.
+    pub provenance: Vec<(String, String)>,
+    /// The scenario as written.
+    pub scenario_toml: Option<String>,
+    /// The resolved scenario.
+    pub resolved_toml: Option<String>,
+    /// The caution stored in the run file.
+    pub file_caution: Option<String>,
 }
 
 impl RunMetrics {
@@ -557,6 +565,10 @@ pub fn analyse(run: &RunFile, opts: &Options, progress: &ProgressBar) -> Result<
         species: Vec::new(),
         series: series.clone(),
         notes: Vec::new(),
+        provenance: run.provenance.clone(),
+        scenario_toml: run.scenario_toml.clone(),
+        resolved_toml: run.resolved_toml.clone(),
+        file_caution: run.caution.clone(),
     };
     if !run.is_complete() {
         out.note(format!(
