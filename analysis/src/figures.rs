@@ -303,17 +303,28 @@ impl std::str::FromStr for Axis {
     }
 }
 
-/// Reads a field, or `total_<s>`: the sum of every compartment field of species `s`.
+/// Reads a field, or `total_<s>`: every compartment of species `s` together, m-3 (the
+/// compartment fields, and the cell table's bound and internalised loads where the snapshot
+/// has no field for them, as in [`crate::metrics`]).
 pub fn field_or_total(run: &RunFile, snap: &SnapshotInfo, name: &str) -> Result<(Vec<f64>, String)> {
     if let Some(s) = name.strip_prefix("total_")
         && run.field(snap, name)?.is_none()
     {
+        let cells = run.table(snap, "cells")?;
         let mut sum: Option<Vec<f64>> = None;
         for p in ["free_", "bound_", "internalised_", "matrix_bound_"] {
-            if let Some(f) = run.field(snap, &format!("{p}{s}"))? {
+            let col = format!("{p}{s}");
+            let data = match run.field(snap, &col)? {
+                Some(f) => Some(f.data),
+                None if p != "free_" && p != "matrix_bound_" => {
+                    cells.as_ref().and_then(|c| crate::metrics::cells_to_voxels(&run.lattice, c, &col))
+                }
+                None => None,
+            };
+            if let Some(data) = data {
                 match &mut sum {
-                    None => sum = Some(f.data),
-                    Some(acc) => acc.iter_mut().zip(&f.data).for_each(|(a, b)| *a += b),
+                    None => sum = Some(data),
+                    Some(acc) => acc.iter_mut().zip(&data).for_each(|(a, b)| *a += b),
                 }
             }
         }

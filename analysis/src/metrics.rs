@@ -390,7 +390,7 @@ impl VoxelLoads {
 }
 
 /// Places a per-cell column into the voxels of the cells, as particles per m3.
-fn cells_to_voxels(lattice: &Lattice, cells: &Table, column: &str) -> Option<Vec<f64>> {
+pub(crate) fn cells_to_voxels(lattice: &Lattice, cells: &Table, column: &str) -> Option<Vec<f64>> {
     let load = cells.column(column)?;
     let voxel = cells.column("voxel")?;
     let inv = 1.0 / lattice.voxel_volume_m3();

@@ -323,6 +323,7 @@ fn draw_slice<DB: DrawingBackend>(root: &DrawingArea<DB, Shift>, s: &Slice) -> R
     cb.configure_mesh()
         .disable_mesh()
         .disable_x_axis()
+        .set_tick_mark_size(LabelAreaPosition::Right, 6)
         .y_desc(s.value_label.as_str())
         .y_label_formatter(&|v| fmt_tick(*v))
         .label_style((FAMILY, 13))
