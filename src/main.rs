@@ -110,13 +110,13 @@ enum Command {
 #[derive(clap::Args)]
 struct AnalysisFlags {
     /// Coverage threshold: internalised particles a cancer cell must exceed.
-    #[arg(long, default_value_t = 1000.0)]
+    #[arg(long, default_value_t = 1000.0, allow_negative_numbers = true)]
     threshold: f64,
     /// Tissue density for %ID per gram, g/mL.
-    #[arg(long = "density-g-per-ml", default_value_t = 1.0)]
+    #[arg(long = "density-g-per-ml", default_value_t = 1.0, allow_negative_numbers = true)]
     density_g_per_ml: f64,
     /// Width of the penetration-profile bins, um (default: the voxel size).
-    #[arg(long = "bin-um")]
+    #[arg(long = "bin-um", allow_negative_numbers = true)]
     bin_um: Option<f64>,
     /// Species to analyse (repeat for several; default: all).
     #[arg(long)]

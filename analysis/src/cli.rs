@@ -159,6 +159,21 @@ pub fn plots(run: &Path, out_dir: &Path, args: &AnalysisArgs, p: &PlotArgs) -> R
         return Err(AnalysisError::option("format", "none", "png, svg or both"));
     }
     let (rf, m) = load(run, args)?;
+    // Every slice is cut before anything is written: a bad field or snapshot leaves no files.
+    let snap = match p.snapshot {
+        Some(i) => rf.snapshot(i)?.clone(),
+        None => rf.require_snapshots()?.last().cloned().expect("at least one snapshot"),
+    };
+    let fields = if p.fields.is_empty() {
+        let species: Vec<String> = m.species.iter().map(|s| s.name.clone()).collect();
+        figures::default_slice_fields(&rf, &snap, &species)?
+    } else {
+        p.fields.clone()
+    };
+    let slices = fields
+        .iter()
+        .map(|f| figures::slice(&rf, &snap, f, axis, p.index).map(|s| (f.clone(), s)))
+        .collect::<Result<Vec<_>>>()?;
     std::fs::create_dir_all(out_dir).map_err(AnalysisError::write(out_dir, "the output folder"))?;
     let mut out = Vec::new();
     let mut save = |name: &str, png: Option<Vec<u8>>, svg: Option<String>| -> Result<()> {
@@ -179,18 +194,7 @@ pub fn plots(run: &Path, out_dir: &Path, args: &AnalysisArgs, p: &PlotArgs) -> R
         let svg = if p.svg { Some(plot::line_svg(&f.chart, plot::SIZE)?) } else { None };
         save(&f.name, png, svg)?;
     }
-    let snap = match p.snapshot {
-        Some(i) => rf.snapshot(i)?.clone(),
-        None => rf.require_snapshots()?.last().cloned().expect("at least one snapshot"),
-    };
-    let fields = if p.fields.is_empty() {
-        let species: Vec<String> = m.species.iter().map(|s| s.name.clone()).collect();
-        figures::default_slice_fields(&rf, &snap, &species)?
-    } else {
-        p.fields.clone()
-    };
-    for field in fields {
-        let sl = figures::slice(&rf, &snap, &field, axis, p.index)?;
+    for (field, sl) in slices {
         let png = if p.png { Some(plot::slice_png(&sl, (760, 560))?) } else { None };
         let svg = if p.svg { Some(plot::slice_svg(&sl, (760, 560))?) } else { None };
         save(&format!("slice_{field}_{}_{:?}", snap.name, axis).to_lowercase(), png, svg)?;

@@ -41,15 +41,20 @@ figure{margin:1em 0;display:inline-block;vertical-align:top}figcaption{font-size
 svg,img{max-width:100%;height:auto}pre{background:#f4f4f4;padding:.6em;overflow-x:auto;font-size:.85em}\
 .notes li{margin:.2em 0}.meta td:first-child{font-weight:bold}";
 
-const CHECK_SCRIPT: &str = "<script>window.addEventListener('load',function(){var bad=0;\
+/// Records, on `<body>`, whether every image decoded (`data-images-ok`) and how many errors the
+/// page raised (`data-errors`): what a headless browser test reads back. It loads nothing.
+const CHECK_SCRIPT: &str = "<script>(function(){var errs=0;\
+window.addEventListener('error',function(){errs++;},true);\
+window.addEventListener('load',function(){var bad=0;\
 for(var i=0;i<document.images.length;i++){var m=document.images[i];if(!(m.complete&&m.naturalWidth>0))bad++;}\
-document.body.setAttribute('data-images-ok',bad===0?'yes':'no:'+bad);});</script>";
+document.body.setAttribute('data-images-ok',bad===0?'yes':'no:'+bad);\
+document.body.setAttribute('data-errors',String(errs));});})();</script>";
 
 fn page(title: &str, body: &str) -> String {
     format!(
         "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"><title>{t}</title>\
-<meta name=\"viewport\" content=\"width=device-width,initial-scale=1\"><style>{STYLE}</style></head>\n\
-<body><main>\n{body}\n<p class=\"caution\">{c}</p>\n</main>{CHECK_SCRIPT}</body></html>\n",
+<meta name=\"viewport\" content=\"width=device-width,initial-scale=1\"><style>{STYLE}</style>{CHECK_SCRIPT}</head>\n\
+<body><main>\n{body}\n<p class=\"caution\">{c}</p>\n</main></body></html>\n",
         t = esc(title),
         c = esc(crate::CAUTION)
     )
