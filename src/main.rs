@@ -4,8 +4,8 @@ use std::path::PathBuf;
 use std::process::ExitCode;
 
 use clap::{Parser, Subcommand};
-use interstice_sim::scenario::{LoadedScenario, defaults_table};
 use interstice_analysis as analysis;
+use interstice_sim::scenario::{LoadedScenario, defaults_table};
 use interstice_sim::{RunOptions, Simulation, check, provenance};
 
 /// Simulates how nanoparticles travel from the blood into and through a solid tumour.

@@ -109,7 +109,8 @@ fn png_stats(bytes: &[u8]) -> (u32, u32, usize, f64) {
 fn report_and_comparison_load_in_headless_chromium() {
     let dir = tempfile::tempdir().unwrap();
     let a = example_file(dir.path(), "a", &Example { n: 16, ..Example::default() }, false);
-    let b = example_file(dir.path(), "b", &Example { n: 16, dose_a: 3e10, name: "b".into(), ..Example::default() }, true);
+    let b =
+        example_file(dir.path(), "b", &Example { n: 16, dose_a: 3e10, name: "b".into(), ..Example::default() }, true);
     let report = dir.path().join("a-report.html");
     interstice(&["report", a.to_str().unwrap(), "-q"]);
     assert!(report.exists());
@@ -123,7 +124,11 @@ fn report_and_comparison_load_in_headless_chromium() {
         assert!(dom.contains("research use only"), "{}: no caution", page.display());
         let (w, h, colours, ink) = png_stats(&shot);
         assert_eq!((w, h), (1200, 1600));
-        assert!(colours > 50 && ink > 0.02, "{}: screenshot looks blank ({colours} colours, {ink} ink)", page.display());
+        assert!(
+            colours > 50 && ink > 0.02,
+            "{}: screenshot looks blank ({colours} colours, {ink} ink)",
+            page.display()
+        );
     }
 }
 

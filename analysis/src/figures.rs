@@ -198,7 +198,8 @@ pub fn coverage_chart(m: &RunMetrics, s: &SpeciesMetrics) -> Option<Figure> {
 /// Particle stocks of the series (`plasma_<s>`, `cleared_<s>`...) over time.
 pub fn balance_chart(m: &RunMetrics, s: &SpeciesMetrics) -> Option<Figure> {
     let u = time_unit(max_time(m));
-    let stocks = ["injected", "plasma", "cleared", "free", "bound_cells", "bound_matrix", "internalised", "drained", "left"];
+    let stocks =
+        ["injected", "plasma", "cleared", "free", "bound_cells", "bound_matrix", "internalised", "drained", "left"];
     let lines: Vec<Line> = stocks
         .iter()
         .enumerate()
@@ -475,7 +476,8 @@ pub fn compare_figures(runs: &[&RunMetrics]) -> Vec<Figure> {
                 },
             });
         }
-        let cov = per_run(&|s| s.times.last().and_then(|x| x.coverage.as_ref()).map(|c| c.curve.clone()).unwrap_or_default());
+        let cov =
+            per_run(&|s| s.times.last().and_then(|x| x.coverage.as_ref()).map(|c| c.curve.clone()).unwrap_or_default());
         if !cov.is_empty() {
             out.push(Figure {
                 name: format!("compare_coverage_{sp}"),
@@ -495,7 +497,11 @@ pub fn compare_figures(runs: &[&RunMetrics]) -> Vec<Figure> {
                     .last()
                     .and_then(|x| profile_of(x, r))
                     .map(|p| {
-                        p.bins.iter().filter(|b| b.voxels > 0).map(|b| (0.5 * (b.lo_m + b.hi_m) * 1e6, b.mean_total)).collect()
+                        p.bins
+                            .iter()
+                            .filter(|b| b.voxels > 0)
+                            .map(|b| (0.5 * (b.lo_m + b.hi_m) * 1e6, b.mean_total))
+                            .collect()
                     })
                     .unwrap_or_default()
             });

@@ -26,8 +26,8 @@ pub fn point_segment_distance(p: [f64; 3], a: [f64; 3], b: [f64; 3]) -> f64 {
 
 /// Distance to the nearest vessel wall, through a k-d tree over centre-line samples.
 ///
-/// The wall distance of a point is `max(0, min over segments of (distance to the centre line
-/// - radius))`. The tree holds samples spaced at most `spacing` apart along every centre line;
+/// The wall distance of a point is `max(0, min over segments of (centre-line distance minus
+/// radius))`. The tree holds samples spaced at most `spacing` apart along every centre line;
 /// the nearest sample gives an upper bound `U` (the exact wall distance of its segment), and
 /// every segment that could beat it has a sample within `U + r_max + spacing / 2`, so the
 /// segments of the samples in that ball are measured exactly. The result is therefore exact,
@@ -179,7 +179,8 @@ mod tests {
         let vd = VesselDistance::new(segs.clone(), 0.03).unwrap();
         for _ in 0..2000 {
             let p = [lcg(&mut s) * 1.2 - 0.1, lcg(&mut s) * 1.2 - 0.1, lcg(&mut s) * 1.2 - 0.1];
-            let brute = segs.iter().map(|g| point_segment_distance(p, g.a, g.b) - g.radius).fold(f64::INFINITY, f64::min);
+            let brute =
+                segs.iter().map(|g| point_segment_distance(p, g.a, g.b) - g.radius).fold(f64::INFINITY, f64::min);
             assert_eq!(vd.wall_distance(p), brute.max(0.0), "{p:?}");
         }
     }
@@ -200,12 +201,12 @@ mod tests {
         let l = Lattice { shape_xyz: [10, 3, 2], voxel_size_m: 2.0, origin_m: [1.0, 0.0, 0.0] };
         let tumour: Vec<bool> = (0..l.len()).map(|v| l.ijk(v)[0] < 6).collect();
         let d = depth_from_surface(&l, &tumour).unwrap();
-        for v in 0..l.len() {
+        for (v, &dv) in d.iter().enumerate() {
             let i = l.ijk(v)[0];
             if i < 6 {
-                assert_eq!(d[v], (6.0 - i as f64 - 0.5) * 2.0);
+                assert_eq!(dv, (6.0 - i as f64 - 0.5) * 2.0);
             } else {
-                assert!(d[v].is_nan());
+                assert!(dv.is_nan());
             }
         }
         assert!(depth_from_surface(&l, &vec![true; l.len()]).is_none());

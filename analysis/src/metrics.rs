@@ -54,7 +54,7 @@ use indicatif::ProgressBar;
 use crate::error::{AnalysisError, Result};
 use crate::geometry::{Segment, VesselDistance, depth_from_surface, vessel_distances};
 use crate::runfile::{Lattice, RunFile, Series, SnapshotInfo, Table};
-use crate::stats::{coefficient_of_variation, gini, trapezoid, weighted_quantile};
+use crate::stats::{coefficient_of_variation, gini, positive, trapezoid, weighted_quantile};
 
 /// Grams per kilogram.
 const G_PER_KG: f64 = 1000.0;
@@ -438,7 +438,7 @@ pub fn perivascular_index(d: &[f64], q: &[f64]) -> Option<f64> {
             n += 1;
         }
     }
-    if n == 0 || !(sw > 0.0) || !(sd > 0.0) {
+    if n == 0 || !positive(sw) || !positive(sd) {
         return None;
     }
     Some(1.0 - (swd / sw) / (sd / n as f64))
@@ -586,8 +586,8 @@ pub fn analyse(run: &RunFile, opts: &Options, progress: &ProgressBar) -> Result<
     let mut metrics: Vec<SpeciesMetrics> = species
         .iter()
         .map(|s| {
-            let from_series =
-                find_series(&format!("injected_{s}")).and_then(|se| se.values.iter().rev().find(|v| v.is_finite()).copied());
+            let from_series = find_series(&format!("injected_{s}"))
+                .and_then(|se| se.values.iter().rev().find(|v| v.is_finite()).copied());
             let from_toml = run.particles.iter().find(|p| &p.name == s).and_then(|p| p.dose_particles);
             let (dose, source) = match (from_series, from_toml) {
                 (Some(d), _) if d > 0.0 => (Some(d), format!("series injected_{s} (last analysed value)")),
@@ -705,7 +705,8 @@ pub fn analyse(run: &RunFile, opts: &Options, progress: &ProgressBar) -> Result<
             let per_g = |p: Option<f64>, v: f64| p.and_then(|p| finite(p / (v * opts.density_kg_per_m3 * G_PER_KG)));
             let t_pct = pct(tc.total());
             let h_pct = pct(hc.total());
-            let ratio = if loads.any() && vt > 0.0 && vh > 0.0 { finite((tc.total() / vt) / (hc.total() / vh)) } else { None };
+            let ratio =
+                if loads.any() && vt > 0.0 && vh > 0.0 { finite((tc.total() / vt) / (hc.total() / vh)) } else { None };
 
             // Cells.
             let (coverage, spread) = match (&cells, &cancer) {
@@ -750,7 +751,9 @@ pub fn analyse(run: &RunFile, opts: &Options, progress: &ProgressBar) -> Result<
                 _ => (None, None),
             };
 
-            let masked = |d: &Vec<f64>| -> Vec<f64> { d.iter().zip(&tumour).map(|(d, t)| if *t { *d } else { f64::NAN }).collect() };
+            let masked = |d: &Vec<f64>| -> Vec<f64> {
+                d.iter().zip(&tumour).map(|(d, t)| if *t { *d } else { f64::NAN }).collect()
+            };
             let vessel_profile = if loads.any() {
                 vdist.as_ref().and_then(|d| profile(Reference::Vessel, &masked(d), &loads, bin_w, vol))
             } else {
@@ -765,10 +768,11 @@ pub fn analyse(run: &RunFile, opts: &Options, progress: &ProgressBar) -> Result<
             // Balance from the series.
             let at = |name: String| find_series(&name).map(|se| se.values[si]).filter(|v| v.is_finite());
             let balance = at(format!("injected_{s}")).and_then(|inj| {
-                let stocks: Vec<f64> = ["plasma", "cleared", "free", "bound_cells", "bound_matrix", "internalised", "drained", "left"]
-                    .iter()
-                    .filter_map(|k| at(format!("{k}_{s}")))
-                    .collect();
+                let stocks: Vec<f64> =
+                    ["plasma", "cleared", "free", "bound_cells", "bound_matrix", "internalised", "drained", "left"]
+                        .iter()
+                        .filter_map(|k| at(format!("{k}_{s}")))
+                        .collect();
                 if stocks.is_empty() {
                     return None;
                 }

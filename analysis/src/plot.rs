@@ -355,7 +355,10 @@ pub fn encode_png(rgb: &[u8], (w, h): (u32, u32)) -> Result<Vec<u8>> {
     Ok(out)
 }
 
-fn png_of(size: (u32, u32), draw: impl FnOnce(&DrawingArea<BitMapBackend<'_>, Shift>) -> Result<()>) -> Result<Vec<u8>> {
+fn png_of(
+    size: (u32, u32),
+    draw: impl FnOnce(&DrawingArea<BitMapBackend<'_>, Shift>) -> Result<()>,
+) -> Result<Vec<u8>> {
     register_font();
     let mut buf = vec![255u8; size.0 as usize * size.1 as usize * 3];
     {

@@ -139,7 +139,7 @@ pub fn label(q: &str) -> String {
 
 fn svg_figure(out: &mut String, f: &Figure) -> Result<()> {
     let svg = plot::line_svg(&f.chart, plot::SIZE)?;
-    let _ = write!(out, "<figure>{svg}<figcaption>{}</figcaption></figure>\n", esc(&f.caption));
+    let _ = writeln!(out, "<figure>{svg}<figcaption>{}</figcaption></figure>", esc(&f.caption));
     Ok(())
 }
 
@@ -215,11 +215,27 @@ pub fn run_report(m: &RunMetrics, run: &RunFile) -> Result<String> {
         ),
         ("last analysed time", last.map_or("none".into(), |s| figures::fmt_time(s.time_s, tu))),
         ("lattice", format!("{nx} × {ny} × {nz} voxels of {} µm", fmt_value(h_um))),
-        ("tumour volume (last snapshot)", format!("{} mm3", fmt_value(m.tumour_volume_m3.last().copied().unwrap_or(0.0) * 1e9))),
-        ("species", if m.species.is_empty() { "none".into() } else { m.species.iter().map(|s| s.name.as_str()).collect::<Vec<_>>().join(", ") }),
+        (
+            "tumour volume (last snapshot)",
+            format!("{} mm3", fmt_value(m.tumour_volume_m3.last().copied().unwrap_or(0.0) * 1e9)),
+        ),
+        (
+            "species",
+            if m.species.is_empty() {
+                "none".into()
+            } else {
+                m.species.iter().map(|s| s.name.as_str()).collect::<Vec<_>>().join(", ")
+            },
+        ),
         ("tissue density", format!("{} g/mL", fmt_value(m.options.density_kg_per_m3 / 1000.0))),
-        ("coverage threshold", format!("{} internalised particles per cancer cell", fmt_value(m.options.threshold_particles))),
-        ("profile bin width", format!("{} µm", fmt_value(m.options.bin_width_m.unwrap_or(m.lattice.voxel_size_m) * 1e6))),
+        (
+            "coverage threshold",
+            format!("{} internalised particles per cancer cell", fmt_value(m.options.threshold_particles)),
+        ),
+        (
+            "profile bin width",
+            format!("{} µm", fmt_value(m.options.bin_width_m.unwrap_or(m.lattice.voxel_size_m) * 1e6)),
+        ),
     ];
     for (k, v) in rows {
         let _ = writeln!(b, "<tr><td>{}</td><td>{}</td></tr>", esc(k), esc(&v));
@@ -240,7 +256,11 @@ pub fn run_report(m: &RunMetrics, run: &RunFile) -> Result<String> {
         );
         let mut rows = summary_rows(m).into_iter().filter(|r| r.species == s.name).collect::<Vec<_>>();
         if let Some(x) = s.times.last() {
-            let _ = writeln!(b, "<p>Values at the last analysed snapshot ({}) and over the time course:</p>", figures::fmt_time(x.time_s, tu));
+            let _ = writeln!(
+                b,
+                "<p>Values at the last analysed snapshot ({}) and over the time course:</p>",
+                figures::fmt_time(x.time_s, tu)
+            );
             rows.extend(species_time_rows(&s.name, x));
         }
         metric_table(&mut b, &rows, tu);
@@ -268,7 +288,12 @@ pub fn run_report(m: &RunMetrics, run: &RunFile) -> Result<String> {
             for f in fields {
                 let sl = figures::slice(run, snap, &f, Axis::Z, None)?;
                 let png = plot::slice_png(&sl, (760, 560))?;
-                let _ = writeln!(b, "<figure>{}<figcaption>{}</figcaption></figure>", png_img(&png, &sl.title), esc(&sl.title));
+                let _ = writeln!(
+                    b,
+                    "<figure>{}<figcaption>{}</figcaption></figure>",
+                    png_img(&png, &sl.title),
+                    esc(&sl.title)
+                );
             }
         }
     }
@@ -297,7 +322,9 @@ pub fn run_report(m: &RunMetrics, run: &RunFile) -> Result<String> {
     if let Some(c) = &m.file_caution {
         let _ = writeln!(b, "<p>Caution stored in the run file: {}</p>", esc(c));
     }
-    for (title, text) in [("Scenario as written", &m.scenario_toml), ("Resolved scenario (every key)", &m.resolved_toml)] {
+    for (title, text) in
+        [("Scenario as written", &m.scenario_toml), ("Resolved scenario (every key)", &m.resolved_toml)]
+    {
         if let Some(t) = text {
             let _ = writeln!(b, "<h2>{title}</h2>\n<details><summary>show</summary><pre>{}</pre></details>", esc(t));
         }

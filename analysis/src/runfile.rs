@@ -218,11 +218,12 @@ impl RunFile {
         }
         let status = string_attr(&root, "status").unwrap_or_else(|| "unknown".into());
         let caution = string_attr(&root, "caution");
-        let finished_attr: u64 =
-            scalar_attr(&root, "finished_snapshots").ok_or_else(|| not_run("no root attribute `finished_snapshots`"))?;
+        let finished_attr: u64 = scalar_attr(&root, "finished_snapshots")
+            .ok_or_else(|| not_run("no root attribute `finished_snapshots`"))?;
 
         let lg = file.group("lattice").map_err(|_| not_run("no /lattice group"))?;
-        let shape: Vec<u64> = array_attr(&lg, "shape_xyz").ok_or_else(|| not_run("no /lattice attribute `shape_xyz`"))?;
+        let shape: Vec<u64> =
+            array_attr(&lg, "shape_xyz").ok_or_else(|| not_run("no /lattice attribute `shape_xyz`"))?;
         if shape.len() != 3 || shape.contains(&0) {
             return Err(not_run(&format!("/lattice `shape_xyz` is {shape:?}, expected three positive counts")));
         }
@@ -265,8 +266,9 @@ impl RunFile {
             if complete != 1 {
                 break;
             }
-            let time_s: f64 = scalar_attr(&g, "time_s").ok_or_else(|| {
-                AnalysisError::BadDataset { path: path.to_path_buf(), what: format!("snapshot {name} has no `time_s`") }
+            let time_s: f64 = scalar_attr(&g, "time_s").ok_or_else(|| AnalysisError::BadDataset {
+                path: path.to_path_buf(),
+                what: format!("snapshot {name} has no `time_s`"),
             })?;
             let step: u64 = scalar_attr(&g, "step").unwrap_or(0);
             snapshots.push(SnapshotInfo { index, name, time_s, step });
@@ -332,7 +334,9 @@ impl RunFile {
     }
 
     fn snapshot_group(&self, snap: &SnapshotInfo) -> Result<hdf5::Group> {
-        self.file.group(&format!("snapshots/{}", snap.name)).map_err(AnalysisError::read(&self.path, format!("snapshot {}", snap.name)))
+        self.file
+            .group(&format!("snapshots/{}", snap.name))
+            .map_err(AnalysisError::read(&self.path, format!("snapshot {}", snap.name)))
     }
 
     /// Names of the fields of a snapshot, sorted.
@@ -355,7 +359,8 @@ impl RunFile {
         if !g.link_exists("fields") {
             return Ok(None);
         }
-        let fg = g.group("fields").map_err(AnalysisError::read(&self.path, format!("snapshot {} fields", snap.name)))?;
+        let fg =
+            g.group("fields").map_err(AnalysisError::read(&self.path, format!("snapshot {} fields", snap.name)))?;
         if !fg.link_exists(name) {
             return Ok(None);
         }
@@ -400,7 +405,8 @@ impl RunFile {
         let mut rows: Option<usize> = scalar_attr::<u64>(&tg, "rows").map(|r| r as usize);
         for name in names {
             let Ok(ds) = tg.dataset(&name) else { continue };
-            let v = ds.read_raw::<f64>().map_err(AnalysisError::read(&self.path, format!("column {name} of {what}")))?;
+            let v =
+                ds.read_raw::<f64>().map_err(AnalysisError::read(&self.path, format!("column {name} of {what}")))?;
             match rows {
                 Some(r) if r != v.len() => {
                     return Err(AnalysisError::BadDataset {
@@ -429,8 +435,7 @@ impl RunFile {
             if ds.ndim() != 1 {
                 continue;
             }
-            let mut values =
-                ds.read_raw::<f64>().map_err(AnalysisError::read(&self.path, format!("series {name}")))?;
+            let mut values = ds.read_raw::<f64>().map_err(AnalysisError::read(&self.path, format!("series {name}")))?;
             values.truncate(n);
             values.resize(n, f64::NAN);
             let units = string_attr(&ds, "units").unwrap_or_else(|| "1".into());
@@ -477,7 +482,8 @@ impl RunFile {
 pub fn particles_of(resolved_toml: &str) -> Vec<ParticleDesign> {
     let Ok(t) = resolved_toml.parse::<toml::Table>() else { return Vec::new() };
     let Some(list) = t.get("particle").and_then(|p| p.as_array()) else { return Vec::new() };
-    let num = |v: &toml::Value, k: &str| v.get(k).and_then(|x| x.as_float().or_else(|| x.as_integer().map(|i| i as f64)));
+    let num =
+        |v: &toml::Value, k: &str| v.get(k).and_then(|x| x.as_float().or_else(|| x.as_integer().map(|i| i as f64)));
     list.iter()
         .filter_map(|p| {
             Some(ParticleDesign {

@@ -9,6 +9,11 @@ pub fn trapezoid(x: &[f64], y: &[f64]) -> Option<f64> {
     Some(x.windows(2).zip(y.windows(2)).map(|(x, y)| 0.5 * (x[1] - x[0]) * (y[0] + y[1])).sum())
 }
 
+/// True for a number greater than 0 (false for NaN).
+pub fn positive(x: f64) -> bool {
+    x > 0.0
+}
+
 /// Arithmetic mean; NaN for no values.
 pub fn mean(v: &[f64]) -> f64 {
     if v.is_empty() { f64::NAN } else { v.iter().sum::<f64>() / v.len() as f64 }
@@ -35,7 +40,7 @@ pub fn coefficient_of_variation(v: &[f64]) -> f64 {
 pub fn gini(v: &[f64]) -> f64 {
     let n = v.len();
     let total: f64 = v.iter().sum();
-    if n == 0 || !(total > 0.0) {
+    if n == 0 || !positive(total) {
         return f64::NAN;
     }
     let mut s = v.to_vec();
@@ -49,7 +54,7 @@ pub fn gini(v: &[f64]) -> f64 {
 pub fn weighted_quantile(d: &[f64], w: &[f64], q: f64) -> f64 {
     let mut pairs: Vec<(f64, f64)> = d.iter().zip(w).filter(|(d, _)| d.is_finite()).map(|(&d, &w)| (d, w)).collect();
     let total: f64 = pairs.iter().map(|p| p.1).sum();
-    if !(total > 0.0) {
+    if !positive(total) {
         return f64::NAN;
     }
     pairs.sort_by(|a, b| a.0.total_cmp(&b.0));
@@ -71,7 +76,8 @@ mod tests {
     // Outside reference: the double-sum definition of Gini (1912), evaluated by brute force.
     #[test]
     fn gini_matches_the_double_sum_definition() {
-        let sets: [&[f64]; 5] = [&[1.0, 1.0, 1.0, 1.0], &[0.0, 0.0, 0.0, 8.0], &[1.0, 2.0, 3.0], &[5.0], &[0.3, 7.0, 2.2, 0.0, 9.1, 4.4]];
+        let sets: [&[f64]; 5] =
+            [&[1.0, 1.0, 1.0, 1.0], &[0.0, 0.0, 0.0, 8.0], &[1.0, 2.0, 3.0], &[5.0], &[0.3, 7.0, 2.2, 0.0, 9.1, 4.4]];
         for v in sets {
             let n = v.len() as f64;
             let m = v.iter().sum::<f64>() / n;

@@ -180,8 +180,7 @@ impl Run {
         str_attr(&root, "format", FORMAT)?;
         root.new_attr::<u32>().shape(()).create("format_version")?.write_scalar(&1u32)?;
         str_attr(&root, "status", &self.status)?;
-        let finished =
-            self.finished_snapshots.unwrap_or(self.snapshots.iter().filter(|s| s.complete).count() as u64);
+        let finished = self.finished_snapshots.unwrap_or(self.snapshots.iter().filter(|s| s.complete).count() as u64);
         root.new_attr::<u64>().shape(()).create("finished_snapshots")?.write_scalar(&finished)?;
         str_attr(&root, "caution", crate::CAUTION)?;
         let l = f.create_group("lattice")?;
@@ -323,8 +322,8 @@ pub fn example(e: &Example) -> Run {
             Column::u8("perfused", "1", vec![1, 0]),
         ];
         let vol = e.h.powi(3);
-        let tissue: f64 = free_a.iter().chain(&bound_a).chain(&matrix_a).sum::<f64>() * vol
-            + internalised.iter().sum::<u64>() as f64;
+        let tissue: f64 =
+            free_a.iter().chain(&bound_a).chain(&matrix_a).sum::<f64>() * vol + internalised.iter().sum::<u64>() as f64;
         injected.push(e.dose_a);
         let cleared = 0.3 * e.dose_a * g;
         stocks[0].push(e.dose_a - cleared - tissue); // plasma
@@ -356,8 +355,16 @@ pub fn example(e: &Example) -> Run {
         ("cleared_a".into(), "particles".into(), stocks[1].clone()),
         ("free_a".into(), "particles".into(), stocks[2].clone()),
         ("bound_cells_a".into(), "particles".into(), stocks[3].clone()),
-        ("fluid_leakage_m3_per_s".into(), "m3 s-1".into(), e.times_s.iter().map(|t| 1e-15 * (1.0 + t / tmax)).collect()),
-        ("fluid_drainage_m3_per_s".into(), "m3 s-1".into(), e.times_s.iter().map(|t| 0.8e-15 * (1.0 + t / tmax)).collect()),
+        (
+            "fluid_leakage_m3_per_s".into(),
+            "m3 s-1".into(),
+            e.times_s.iter().map(|t| 1e-15 * (1.0 + t / tmax)).collect(),
+        ),
+        (
+            "fluid_drainage_m3_per_s".into(),
+            "m3 s-1".into(),
+            e.times_s.iter().map(|t| 0.8e-15 * (1.0 + t / tmax)).collect(),
+        ),
     ];
     run
 }

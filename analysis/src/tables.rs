@@ -45,7 +45,13 @@ pub fn text(s: &str) -> String {
 
 fn push(rows: &mut Vec<Row>, species: &str, t: Option<f64>, q: impl Into<String>, v: Option<f64>, units: &str) {
     if let Some(v) = v {
-        rows.push(Row { species: species.to_string(), time_s: t, quantity: q.into(), value: v, units: units.to_string() });
+        rows.push(Row {
+            species: species.to_string(),
+            time_s: t,
+            quantity: q.into(),
+            value: v,
+            units: units.to_string(),
+        });
     }
 }
 
@@ -161,7 +167,15 @@ pub fn metrics_csv(runs: &[&RunMetrics]) -> String {
     for m in runs {
         for r in metric_rows(m) {
             let t = r.time_s.map_or("NA".to_string(), num);
-            let _ = writeln!(out, "{},{},{t},{},{},{}", text(&m.run), text(&r.species), text(&r.quantity), num(r.value), text(&r.units));
+            let _ = writeln!(
+                out,
+                "{},{},{t},{},{},{}",
+                text(&m.run),
+                text(&r.species),
+                text(&r.quantity),
+                num(r.value),
+                text(&r.units)
+            );
         }
     }
     out
@@ -172,7 +186,15 @@ pub fn summary_csv(runs: &[&RunMetrics]) -> String {
     let mut out = String::from("run,species,quantity,value,units\n");
     for m in runs {
         for r in summary_rows(m) {
-            let _ = writeln!(out, "{},{},{},{},{}", text(&m.run), text(&r.species), text(&r.quantity), num(r.value), text(&r.units));
+            let _ = writeln!(
+                out,
+                "{},{},{},{},{}",
+                text(&m.run),
+                text(&r.species),
+                text(&r.quantity),
+                num(r.value),
+                text(&r.units)
+            );
         }
     }
     out
@@ -247,7 +269,15 @@ pub fn series_csv(runs: &[&RunMetrics]) -> String {
     for m in runs {
         for s in &m.series {
             for (i, v) in s.values.iter().enumerate() {
-                let _ = writeln!(out, "{},{},{},{},{}", text(&m.run), num(m.snapshots[i].time_s), text(&s.name), num(*v), text(&s.units));
+                let _ = writeln!(
+                    out,
+                    "{},{},{},{},{}",
+                    text(&m.run),
+                    num(m.snapshots[i].time_s),
+                    text(&s.name),
+                    num(*v),
+                    text(&s.units)
+                );
             }
         }
     }

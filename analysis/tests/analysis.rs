@@ -112,7 +112,8 @@ fn single_vessel_distances_and_binding_site_barrier_index_match_the_analytic_geo
     let last = a.times.last().unwrap();
     let p = last.vessel_profile.as_ref().unwrap();
     for b in &p.bins {
-        let want = d.iter().filter(|(_, x)| *x >= b.lo_m && (*x < b.hi_m || b.hi_m >= p.bins.last().unwrap().hi_m)).count();
+        let want =
+            d.iter().filter(|(_, x)| *x >= b.lo_m && (*x < b.hi_m || b.hi_m >= p.bins.last().unwrap().hi_m)).count();
         assert_eq!(b.voxels, want, "bin {} um", b.lo_m * 1e6);
     }
     // Cell-bound field 5e15 exp(-d / 15 um) at the last time: the index by its definition.
@@ -226,7 +227,8 @@ fn bad_inputs_get_typed_errors_naming_the_file() {
     let p = dir.path().join("run.h5");
     slab_run(1.0, 1.0, 1.0).write(&p).unwrap();
     let rf = RunFile::open(&p).unwrap();
-    let e = analyse(&rf, &Options { species: vec!["zz".into()], ..Options::default() }, &ProgressBar::hidden()).unwrap_err();
+    let e = analyse(&rf, &Options { species: vec!["zz".into()], ..Options::default() }, &ProgressBar::hidden())
+        .unwrap_err();
     assert!(e.to_string().contains("no particle species `zz` (the run holds: s)"), "{e}");
     for (opts, what) in [
         (Options { threshold_particles: -1.0, ..Options::default() }, "bad value for threshold: -1"),
@@ -275,16 +277,27 @@ fn plots_are_valid_images_of_the_expected_size_and_not_blank() {
     let p = dir.path().join("example.h5");
     synthetic::example(&Example { n: 12, ..Example::default() }).write(&p).unwrap();
     let out = dir.path().join("plots");
-    let files = cli::plots(&p, &out, &cli::AnalysisArgs { quiet: true, ..Default::default() }, &cli::PlotArgs::default()).unwrap();
+    let files =
+        cli::plots(&p, &out, &cli::AnalysisArgs { quiet: true, ..Default::default() }, &cli::PlotArgs::default())
+            .unwrap();
     let names: Vec<String> = files.iter().map(|f| f.file_name().unwrap().to_string_lossy().into_owned()).collect();
-    for want in ["time_course_a.png", "profile_vessel_a.svg", "profile_surface_b.png", "coverage_a.png", "fluid_0.svg", "slice_total_a_000003_z.png", "slice_region_000003_z.svg"] {
+    for want in [
+        "time_course_a.png",
+        "profile_vessel_a.svg",
+        "profile_surface_b.png",
+        "coverage_a.png",
+        "fluid_0.svg",
+        "slice_total_a_000003_z.png",
+        "slice_region_000003_z.svg",
+    ] {
         assert!(names.iter().any(|n| n == want), "{want} missing from {names:?}");
     }
     for f in &files {
         let bytes = std::fs::read(f).unwrap();
         if f.extension().unwrap() == "png" {
             let (w, h, colours, ink) = png_stats(&bytes);
-            let want = if names.iter().any(|n| f.ends_with(n) && n.starts_with("slice")) { (760, 560) } else { plot::SIZE };
+            let want =
+                if names.iter().any(|n| f.ends_with(n) && n.starts_with("slice")) { (760, 560) } else { plot::SIZE };
             assert_eq!((w, h), want, "{}", f.display());
             assert!(colours > 8 && ink > 0.02, "{} looks blank: {colours} colours, {ink} ink", f.display());
         } else {
@@ -294,9 +307,17 @@ fn plots_are_valid_images_of_the_expected_size_and_not_blank() {
         }
     }
     // A slice of a missing field is a typed error naming it.
-    let e = cli::plots(&p, &out, &cli::AnalysisArgs::default(), &cli::PlotArgs { fields: vec!["oxygen".into()], ..Default::default() }).unwrap_err();
+    let e = cli::plots(
+        &p,
+        &out,
+        &cli::AnalysisArgs::default(),
+        &cli::PlotArgs { fields: vec!["oxygen".into()], ..Default::default() },
+    )
+    .unwrap_err();
     assert!(e.to_string().contains("no field `oxygen`"), "{e}");
-    let e = cli::plots(&p, &out, &cli::AnalysisArgs::default(), &cli::PlotArgs { axis: "w".into(), ..Default::default() }).unwrap_err();
+    let e =
+        cli::plots(&p, &out, &cli::AnalysisArgs::default(), &cli::PlotArgs { axis: "w".into(), ..Default::default() })
+            .unwrap_err();
     assert!(e.to_string().contains("bad value for slice axis: w: expected x, y or z"), "{e}");
 }
 
@@ -312,7 +333,9 @@ fn report_and_comparison_pages_are_self_contained_and_carry_the_caution() {
     let a = dir.path().join("a.h5");
     let b = dir.path().join("b.h5");
     synthetic::example(&Example { n: 12, ..Example::default() }).write(&a).unwrap();
-    synthetic::example(&Example { n: 12, dose_a: 2e10, name: "double".into(), ..Example::default() }).write(&b).unwrap();
+    synthetic::example(&Example { n: 12, dose_a: 2e10, name: "double".into(), ..Example::default() })
+        .write(&b)
+        .unwrap();
     let args = cli::AnalysisArgs { quiet: true, ..Default::default() };
     let page = cli::report(&a, None, &args).unwrap();
     assert_eq!(page, dir.path().join("a-report.html"));
@@ -350,7 +373,8 @@ fn tables_are_tidy_with_units_on_every_row() {
     let dir = tempfile::tempdir().unwrap();
     let p = dir.path().join("example.h5");
     synthetic::example(&Example { n: 10, ..Example::default() }).write(&p).unwrap();
-    let (files, summary) = cli::metrics(&p, &dir.path().join("t"), &cli::AnalysisArgs { quiet: true, ..Default::default() }).unwrap();
+    let (files, summary) =
+        cli::metrics(&p, &dir.path().join("t"), &cli::AnalysisArgs { quiet: true, ..Default::default() }).unwrap();
     assert_eq!(files.len(), 5);
     assert!(summary.contains("species a:") && summary.contains(interstice_analysis::CAUTION));
     for f in &files {
@@ -388,7 +412,12 @@ fn runs_without_species_or_optional_fields_still_report() {
     let dir = tempfile::tempdir().unwrap();
     let p = dir.path().join("bare.h5");
     run.write(&p).unwrap();
-    let page = cli::report(&p, Some(&dir.path().join("r/bare.html")), &cli::AnalysisArgs { quiet: true, ..Default::default() }).unwrap();
+    let page = cli::report(
+        &p,
+        Some(&dir.path().join("r/bare.html")),
+        &cli::AnalysisArgs { quiet: true, ..Default::default() },
+    )
+    .unwrap();
     let html = std::fs::read_to_string(page).unwrap();
     assert!(html.contains("no particle species"), "notes missing");
     assert!(report::esc("<a&b>") == "&lt;a&amp;b&gt;");
