@@ -110,10 +110,10 @@ enum Command {
 #[derive(clap::Args)]
 struct AnalysisFlags {
     /// Coverage threshold: internalised particles a cancer cell must exceed.
-    #[arg(long, default_value_t = 1000.0, allow_negative_numbers = true)]
+    #[arg(long, default_value_t = analysis::metrics::DEFAULT_THRESHOLD_PARTICLES, allow_negative_numbers = true)]
     threshold: f64,
     /// Tissue density for %ID per gram, g/mL.
-    #[arg(long = "density-g-per-ml", default_value_t = 1.0, allow_negative_numbers = true)]
+    #[arg(long = "density-g-per-ml", default_value_t = analysis::metrics::DEFAULT_DENSITY_KG_PER_M3 / 1000.0, allow_negative_numbers = true)]
     density_g_per_ml: f64,
     /// Width of the penetration-profile bins, um (default: the voxel size).
     #[arg(long = "bin-um", allow_negative_numbers = true)]

@@ -38,6 +38,8 @@ pub fn fmt_time(t_s: f64, u: TimeUnit) -> String {
 pub struct Figure {
     /// File stem (`time_course_<s>`...).
     pub name: String,
+    /// The species it shows (`None`: the whole run).
+    pub species: Option<String>,
     /// One-line caption.
     pub caption: String,
     /// The chart.
@@ -73,6 +75,7 @@ pub fn time_course(m: &RunMetrics, s: &SpeciesMetrics) -> Figure {
     };
     Figure {
         name: format!("time_course_{}", s.name),
+        species: Some(s.name.clone()),
         caption: format!("{}: dose in the tumour and in host tissue over time", s.name),
         chart: LineChart {
             title: format!("{} in tumour and host", s.name),
@@ -97,6 +100,7 @@ pub fn compartments(m: &RunMetrics, s: &SpeciesMetrics) -> Figure {
         .collect();
     Figure {
         name: format!("compartments_{}", s.name),
+        species: Some(s.name.clone()),
         caption: format!("{}: where the particles in the tumour are", s.name),
         chart: LineChart {
             title: format!("{} in the tumour by compartment", s.name),
@@ -152,6 +156,7 @@ pub fn profile_chart(m: &RunMetrics, s: &SpeciesMetrics, r: Reference) -> Option
         .collect();
     Some(Figure {
         name: format!("profile_{}_{}", r.name(), s.name),
+        species: Some(s.name.clone()),
         caption: format!("{}: mean concentration in the tumour against {}", s.name, r.label()),
         chart: LineChart {
             title: format!("{} penetration ({})", s.name, r.name()),
@@ -181,6 +186,7 @@ pub fn coverage_chart(m: &RunMetrics, s: &SpeciesMetrics) -> Option<Figure> {
         .collect();
     Some(Figure {
         name: format!("coverage_{}", s.name),
+        species: Some(s.name.clone()),
         caption: format!(
             "{}: fraction of cancer cells whose internalised particles exceed each threshold (threshold 0 is left off the logarithmic axis)",
             s.name
@@ -217,6 +223,7 @@ pub fn balance_chart(m: &RunMetrics, s: &SpeciesMetrics) -> Option<Figure> {
     }
     Some(Figure {
         name: format!("balance_{}", s.name),
+        species: Some(s.name.clone()),
         caption: format!("{}: particle balance over the whole body, from the run's series", s.name),
         chart: LineChart {
             title: format!("{} particle balance", s.name),
@@ -250,6 +257,7 @@ pub fn fluid_charts(m: &RunMetrics) -> Vec<Figure> {
                 .collect();
             Figure {
                 name: format!("fluid_{i}"),
+                species: None,
                 caption: format!("fluid balance series in {unit}"),
                 chart: LineChart {
                     title: "fluid balance".into(),
@@ -444,6 +452,7 @@ pub fn compare_figures(runs: &[&RunMetrics]) -> Vec<Figure> {
         if !tc.is_empty() {
             out.push(Figure {
                 name: format!("compare_time_course_{sp}"),
+                species: Some(sp.clone()),
                 caption: format!("{sp}: tumour dose over time in each run"),
                 chart: LineChart {
                     title: format!("{sp} in the tumour"),
@@ -466,6 +475,7 @@ pub fn compare_figures(runs: &[&RunMetrics]) -> Vec<Figure> {
         if !fi.is_empty() {
             out.push(Figure {
                 name: format!("compare_internalised_{sp}"),
+                species: Some(sp.clone()),
                 caption: format!("{sp}: share of the tumour's particles that cells have internalised"),
                 chart: LineChart {
                     title: format!("{sp} internalised share"),
@@ -481,6 +491,7 @@ pub fn compare_figures(runs: &[&RunMetrics]) -> Vec<Figure> {
         if !cov.is_empty() {
             out.push(Figure {
                 name: format!("compare_coverage_{sp}"),
+                species: Some(sp.clone()),
                 caption: format!("{sp}: coverage of cancer cells at each run's last snapshot"),
                 chart: LineChart {
                     title: format!("{sp} coverage (last snapshot)"),
@@ -508,6 +519,7 @@ pub fn compare_figures(runs: &[&RunMetrics]) -> Vec<Figure> {
             if !pr.is_empty() {
                 out.push(Figure {
                     name: format!("compare_profile_{}_{sp}", r.name()),
+                    species: Some(sp.clone()),
                     caption: format!("{sp}: mean concentration against {} at each run's last snapshot", r.label()),
                     chart: LineChart {
                         title: format!("{sp} penetration ({}, last snapshot)", r.name()),

@@ -136,7 +136,7 @@ mod tests {
         (0..n).map(|_| [next(), next() * 0.3, next() * 2.0]).collect()
     }
 
-    // Outside reference: brute force over all points.
+    // The k-d tree of Bentley (1975); outside reference: brute force over all points.
     #[test]
     fn nearest_matches_brute_force_on_random_points() {
         for (n, seed) in [(1, 1), (2, 2), (7, 3), (100, 4), (2000, 5)] {
@@ -151,7 +151,7 @@ mod tests {
         }
     }
 
-    // Outside reference: brute force over all points.
+    // The k-d tree of Bentley (1975); outside reference: brute force over all points.
     #[test]
     fn within_matches_brute_force_including_duplicates() {
         let mut pts = points(500, 9);

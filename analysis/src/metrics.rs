@@ -59,6 +59,11 @@ use crate::stats::{coefficient_of_variation, gini, positive, trapezoid, weighted
 /// Grams per kilogram.
 const G_PER_KG: f64 = 1000.0;
 
+/// Default coverage threshold, internalised particles per cancer cell.
+pub const DEFAULT_THRESHOLD_PARTICLES: f64 = 1000.0;
+/// Default tissue density, kg/m3 (1 g/mL, common practice).
+pub const DEFAULT_DENSITY_KG_PER_M3: f64 = 1000.0;
+
 /// Choices of the analysis.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Options {
@@ -77,8 +82,8 @@ pub struct Options {
 impl Default for Options {
     fn default() -> Self {
         Options {
-            density_kg_per_m3: 1000.0,
-            threshold_particles: 1000.0,
+            density_kg_per_m3: DEFAULT_DENSITY_KG_PER_M3,
+            threshold_particles: DEFAULT_THRESHOLD_PARTICLES,
             bin_width_m: None,
             species: Vec::new(),
             curve_points: 41,

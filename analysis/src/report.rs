@@ -264,7 +264,7 @@ pub fn run_report(m: &RunMetrics, run: &RunFile) -> Result<String> {
             rows.extend(species_time_rows(&s.name, x));
         }
         metric_table(&mut b, &rows, tu);
-        for f in figures::run_figures(m).iter().filter(|f| f.name.ends_with(&format!("_{}", s.name))) {
+        for f in figures::run_figures(m).iter().filter(|f| f.species.as_deref() == Some(s.name.as_str())) {
             svg_figure(&mut b, f)?;
         }
     }
@@ -402,7 +402,7 @@ pub fn compare_report(runs: &[&RunMetrics]) -> Result<String> {
             b.push_str("</tr>\n");
         }
         b.push_str("</table>\n");
-        for f in figs.iter().filter(|f| f.name.ends_with(&format!("_{sp}"))) {
+        for f in figs.iter().filter(|f| f.species.as_deref() == Some(sp.as_str())) {
             svg_figure(&mut b, f)?;
         }
     }

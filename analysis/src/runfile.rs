@@ -200,8 +200,16 @@ impl RunFile {
             return Err(AnalysisError::NotFound { path: path.to_path_buf() });
         }
         let not_run = |why: &str| AnalysisError::NotARunFile { path: path.to_path_buf(), why: why.to_string() };
-        let file = hdf5::File::open(path)
-            .map_err(|e| AnalysisError::NotHdf5 { path: path.to_path_buf(), reason: e.to_string() })?;
+        let file = match hdf5::File::open(path) {
+            Ok(f) => f,
+            // A run still being written holds a lock: read it without locking, over the
+            // snapshots it has finished (each is flushed before it is marked complete).
+            Err(e) if e.to_string().contains("lock") => hdf5::File::with_options()
+                .with_fapl(|p| p.file_locking(false))
+                .open(path)
+                .map_err(|e| AnalysisError::NotHdf5 { path: path.to_path_buf(), reason: e.to_string() })?,
+            Err(e) => return Err(AnalysisError::NotHdf5 { path: path.to_path_buf(), reason: e.to_string() }),
+        };
         let root = file.as_group().map_err(AnalysisError::read(path, "the root group"))?;
         let format = string_attr(&root, "format").ok_or_else(|| not_run("no root attribute `format`"))?;
         if format != FORMAT {

@@ -92,7 +92,9 @@ fn density_scales_percent_per_gram() {
     assert!(close(a / b, 1.1, 1e-12));
 }
 
-// Analytic profile: distances to a straight vessel along x are sqrt(dy^2 + dz^2) - r.
+// Analytic profile: distances to a straight vessel along x are sqrt(dy^2 + dz^2) - r. The
+// binding-site-barrier index (the barrier of Fujimori et al. 1990, J Nucl Med 31:1191) is checked
+// against its definition evaluated by brute force over those analytic distances.
 #[test]
 fn single_vessel_distances_and_binding_site_barrier_index_match_the_analytic_geometry() {
     let e = Example { n: 16, ..Example::default() };
