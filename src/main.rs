@@ -4,7 +4,6 @@ use std::path::PathBuf;
 use std::process::ExitCode;
 
 use clap::{Parser, Subcommand};
-use interstice_analysis as analysis;
 use interstice_sim::scenario::{LoadedScenario, defaults_table};
 use interstice_sim::{RunOptions, Simulation, check, provenance};
 
@@ -110,10 +109,10 @@ enum Command {
 #[derive(clap::Args)]
 struct AnalysisFlags {
     /// Coverage threshold: internalised particles a cancer cell must exceed.
-    #[arg(long, default_value_t = analysis::metrics::DEFAULT_THRESHOLD_PARTICLES, allow_negative_numbers = true)]
+    #[arg(long, default_value_t = interstice_analysis::metrics::DEFAULT_THRESHOLD_PARTICLES, allow_negative_numbers = true)]
     threshold: f64,
     /// Tissue density for %ID per gram, g/mL.
-    #[arg(long = "density-g-per-ml", default_value_t = analysis::metrics::DEFAULT_DENSITY_KG_PER_M3 / 1000.0, allow_negative_numbers = true)]
+    #[arg(long = "density-g-per-ml", default_value_t = interstice_analysis::metrics::DEFAULT_DENSITY_KG_PER_M3 / 1000.0, allow_negative_numbers = true)]
     density_g_per_ml: f64,
     /// Width of the penetration-profile bins, um (default: the voxel size).
     #[arg(long = "bin-um", allow_negative_numbers = true)]
@@ -127,8 +126,8 @@ struct AnalysisFlags {
 }
 
 impl AnalysisFlags {
-    fn args(&self) -> analysis::cli::AnalysisArgs {
-        analysis::cli::AnalysisArgs {
+    fn args(&self) -> interstice_analysis::cli::AnalysisArgs {
+        interstice_analysis::cli::AnalysisArgs {
             threshold: self.threshold,
             density_g_per_ml: self.density_g_per_ml,
             bin_um: self.bin_um,
@@ -193,14 +192,14 @@ fn run(cli: Cli) -> Result<(), Box<dyn std::error::Error>> {
             println!("{}", provenance::CAUTION);
         }
         Command::Metrics { run, out, analysis } => {
-            let (files, summary) = analysis::cli::metrics(&run, &out, &analysis.args())?;
+            let (files, summary) = interstice_analysis::cli::metrics(&run, &out, &analysis.args())?;
             print!("{summary}");
             for f in files {
                 eprintln!("interstice: wrote {}", f.display());
             }
         }
         Command::Plot { run, out, fields, snapshot, axis, slice, format, analysis } => {
-            let p = analysis::cli::PlotArgs {
+            let p = interstice_analysis::cli::PlotArgs {
                 fields,
                 snapshot,
                 axis,
@@ -208,15 +207,15 @@ fn run(cli: Cli) -> Result<(), Box<dyn std::error::Error>> {
                 png: format != "svg",
                 svg: format != "png",
             };
-            let files = analysis::cli::plots(&run, &out, &analysis.args(), &p)?;
+            let files = interstice_analysis::cli::plots(&run, &out, &analysis.args(), &p)?;
             eprintln!("interstice: wrote {} images into {}", files.len(), out.display());
         }
         Command::Report { run, out, analysis } => {
-            let path = analysis::cli::report(&run, out.as_deref(), &analysis.args())?;
+            let path = interstice_analysis::cli::report(&run, out.as_deref(), &analysis.args())?;
             eprintln!("interstice: wrote {}", path.display());
         }
         Command::Compare { runs, out, csv, analysis } => {
-            let path = analysis::cli::compare(&runs, &out, csv.as_deref(), &analysis.args())?;
+            let path = interstice_analysis::cli::compare(&runs, &out, csv.as_deref(), &analysis.args())?;
             eprintln!("interstice: wrote {}", path.display());
         }
     }

@@ -209,6 +209,7 @@ fn killed_runs_are_analysed_over_their_finished_snapshots() {
     assert_eq!(m.series[0].values, vec![0.0, 100.0]);
 }
 
+// The error contract: every bad input is a typed error whose message names the file.
 #[test]
 fn bad_inputs_get_typed_errors_naming_the_file() {
     let dir = tempfile::tempdir().unwrap();
@@ -329,6 +330,7 @@ fn has_no_outside_reference(html: &str) {
     }
 }
 
+// Known answer by construction: the example's tissue amounts do not depend on the dose.
 #[test]
 fn report_and_comparison_pages_are_self_contained_and_carry_the_caution() {
     let dir = tempfile::tempdir().unwrap();
@@ -370,6 +372,7 @@ fn report_and_comparison_pages_are_self_contained_and_carry_the_caution() {
     assert!(e.to_string().contains("at least two run files"), "{e}");
 }
 
+// The tidy layout of tables.rs: one row per run, species, time and quantity, units on every row.
 #[test]
 fn tables_are_tidy_with_units_on_every_row() {
     let dir = tempfile::tempdir().unwrap();
@@ -400,6 +403,7 @@ fn tables_are_tidy_with_units_on_every_row() {
     assert!(tables::num(f64::NAN) == "NA");
 }
 
+// Missing species and fields give notes in the report, not errors.
 #[test]
 fn runs_without_species_or_optional_fields_still_report() {
     let l = Lattice { shape_xyz: [6, 6, 6], voxel_size_m: 2e-5, origin_m: [0.0; 3] };
