@@ -110,6 +110,8 @@ pub struct CellLoad {
     pub bound: [u64; MAX_SPECIES],
     pub internalised: [u64; MAX_SPECIES],
     pub held: [u64; MAX_SPECIES],
+    /// Simulated time of the cell's last kinetics update, s.
+    pub updated_at: f64,
 }
 
 /// Voxel-to-cell lookup: the entity occupying each voxel, if any.

@@ -28,6 +28,10 @@
 //! binomials. Particles detached from a cell or the matrix are held at their voxel (and can
 //! rebind there) until a packet's worth has gathered, then leave as a new packet.
 
+use std::sync::Mutex;
+use std::sync::atomic::{AtomicU64, Ordering};
+
+use bevy_ecs::entity::EntityIndexSet;
 use bevy_ecs::prelude::*;
 use rayon::prelude::*;
 
@@ -150,13 +154,15 @@ impl Kinetics {
     }
 }
 
-/// What each voxel offers a free particle this step: its cell's kind and free receptors.
-#[derive(Resource, Debug, Clone)]
+/// What each voxel offers a free particle: its cell's kind and free receptors. Kept current by
+/// the systems that change receptors (each cell writes only its own voxel, so the stores are
+/// plain relaxed atomics, the same for any thread count).
+#[derive(Resource, Debug)]
 pub struct CellSites {
     /// Cell kind code (`CellKind as u8`), or `NO_CELL`.
     pub kind: Vec<u8>,
-    /// Free receptors of the voxel's cell at the start of the step.
-    pub free: Vec<f64>,
+    /// Free receptors of the voxel's cell (`f64` bits).
+    free: Vec<AtomicU64>,
 }
 
 /// Marks a voxel without a cell in [`CellSites::kind`].
@@ -165,9 +171,46 @@ pub const NO_CELL: u8 = u8::MAX;
 impl CellSites {
     /// Empty sites for a lattice.
     pub fn new(n: usize) -> Self {
-        CellSites { kind: vec![NO_CELL; n], free: vec![0.0; n] }
+        CellSites { kind: vec![NO_CELL; n], free: (0..n).map(|_| AtomicU64::new(0f64.to_bits())).collect() }
+    }
+
+    /// Free receptors at voxel `v`.
+    #[inline]
+    pub fn free(&self, v: usize) -> f64 {
+        f64::from_bits(self.free[v].load(Ordering::Relaxed))
+    }
+
+    /// Records the free receptors of the cell at voxel `v`.
+    #[inline]
+    pub fn set_free(&self, v: usize, x: f64) {
+        self.free[v].store(x.to_bits(), Ordering::Relaxed);
+    }
+
+    /// Rebuilds every site from the cells (at the start, and after cells appear, move or die).
+    pub fn rebuild<'a>(&mut self, cells: impl Iterator<Item = (&'a Cell, &'a Receptors)>) {
+        self.kind.iter_mut().for_each(|k| *k = NO_CELL);
+        for (c, r) in cells {
+            self.kind[c.voxel as usize] = c.kind as u8;
+            self.set_free(c.voxel as usize, r.free);
+        }
     }
 }
+
+/// Steps between updates of a cell's own kinetics (unbinding, internalisation, recycling), with
+/// the cells staggered over the interval. Chosen so that the fastest of those first-order rates
+/// moves at most 1 % of a cell's bound particles per update: each update applies the exact
+/// transition probabilities over its whole interval, so only the coupling to binding lags.
+#[derive(Resource, Debug, Clone, Copy, PartialEq, Eq)]
+pub struct CellInterval(pub u64);
+
+/// Cells that hold particles or are recovering receptors: the only ones whose own kinetics need
+/// updating. A cell joins when a particle first binds to it or is taken up by it.
+#[derive(Resource, Debug, Default)]
+pub struct ActiveCells(pub EntityIndexSet);
+
+/// Particles gathered at a voxel and ready to leave as a packet: (voxel, species, particles).
+#[derive(Resource, Debug, Default)]
+pub struct Releases(pub Mutex<Vec<(u32, u8, u64, u64)>>);
 
 /// Lymph flow leaving the interstitium of each voxel, m^3/s (zero where lymphatics do not work).
 #[derive(Resource, Debug, Clone)]
@@ -273,7 +316,7 @@ fn react_packets(
                 }
                 let kind = sites.kind[v];
                 let k_bind = match k.target {
-                    Some(t) if kind == t as u8 => k.kon_eff * sites.free[v] / vacc,
+                    Some(t) if kind == t as u8 => k.kon_eff * sites.free(v) / vacc,
                     _ => 0.0,
                 };
                 let k_phago = if kind == CellKind::Phagocyte as u8 { k.phagocytosis } else { 0.0 };
@@ -329,14 +372,6 @@ fn react_packets(
     drained
 }
 
-/// Fills [`CellSites`] from the cells.
-pub fn refresh_sites(mut sites: ResMut<CellSites>, cells: Query<(&Cell, &Receptors)>) {
-    for (c, r) in &cells {
-        sites.kind[c.voxel as usize] = c.kind as u8;
-        sites.free[c.voxel as usize] = r.free;
-    }
-}
-
 /// The reaction pass over packets and the settlement of its events.
 #[allow(clippy::too_many_arguments)]
 pub fn packet_reactions(
@@ -354,6 +389,7 @@ pub fn packet_reactions(
     mut bufs: ResMut<EventBuffers>,
     mut mload: ResMut<MatrixLoad>,
     mut ledger: ResMut<Ledger>,
+    mut active: ResMut<ActiveCells>,
     mut cells: Query<(&mut Receptors, &mut CellLoad)>,
 ) {
     let drained = react_packets(
@@ -382,6 +418,7 @@ pub fn packet_reactions(
                     unreachable!("reaction with a cell in an empty voxel")
                 };
                 let (mut rec, mut load) = cells.get_mut(entity).expect("occupied voxel has a cell");
+                active.0.insert(entity);
                 if e.kind == EventKind::Phagocytosis {
                     load.internalised[s] += e.count;
                 } else {
@@ -390,6 +427,7 @@ pub fn packet_reactions(
                     let accepted = e.count.min(room);
                     load.bound[s] += accepted;
                     rec.free -= accepted as f64 * val;
+                    sites.set_free(e.voxel as usize, rec.free);
                     packets.weight[e.index as usize] -= accepted;
                 }
             }
@@ -398,23 +436,38 @@ pub fn packet_reactions(
 }
 
 /// Unbinding, internalisation, recycling and rebinding of held particles, cell by cell
-/// (in parallel: each cell touches only its own state and its own random stream).
+/// (in parallel: each cell touches only its own state, its own site and its own random stream).
+/// A cell updates every [`CellInterval`] steps, over the time since its last update.
+#[allow(clippy::too_many_arguments)] // a system's parameters are the resources it reads
 pub fn cell_kinetics(
     lattice: Res<Lattice>,
     kin: Res<Kinetics>,
     motion: Res<MotionFields>,
     params: Res<BindingParams>,
+    interval: Res<CellInterval>,
+    sites: Res<CellSites>,
+    releases: Res<Releases>,
+    active: Res<ActiveCells>,
     clock: Res<Clock>,
     seed: Res<Seed>,
     mut cells: Query<(&Cell, &mut Receptors, &mut CellLoad)>,
 ) {
-    let dt = clock.dt;
+    let now = clock.time + clock.dt;
     let vol = lattice.voxel_volume();
-    let step = clock.step;
-    let seed = seed.0;
+    let (step, seed, m) = (clock.step, seed.0, interval.0);
+    let last_step = now >= clock.end * (1.0 - 1e-12);
     let ns = kin.species.len();
-    cells.par_iter_mut().for_each(|(cell, mut rec, mut load)| {
+    cells.par_iter_many_unique_mut(&active.0).for_each(|item| {
+        let Ok((cell, mut rec, mut load)) = item else { return };
+        if !last_step && (step + u64::from(cell.voxel)) % m != 0 {
+            return;
+        }
+        let dt = now - load.updated_at;
+        if dt <= 0.0 {
+            return;
+        }
         let busy = (0..ns).any(|s| load.bound[s] > 0 || load.held[s] > 0) || rec.surface < rec.total;
+        load.updated_at = now;
         if !busy {
             return;
         }
@@ -448,17 +501,30 @@ pub fn cell_kinetics(
                     rec.free -= n as f64 * val;
                 }
             }
+            if load.held[s] >= k.packet {
+                let n = load.held[s] / k.packet;
+                load.held[s] -= n * k.packet;
+                releases.0.lock().expect("release list").push((cell.voxel, s as u8, n, k.packet));
+            }
         }
         if rec.surface < rec.total && params.receptor_recycling > 0.0 {
             let back = (rec.total - rec.surface) * (1.0 - (-params.receptor_recycling * dt).exp());
             rec.surface += back;
             rec.free += back;
         }
+        sites.set_free(v, rec.free);
     });
 }
 
 /// Desorption from the matrix, voxel by voxel.
-pub fn matrix_kinetics(params: Res<BindingParams>, clock: Res<Clock>, seed: Res<Seed>, mut mload: ResMut<MatrixLoad>) {
+pub fn matrix_kinetics(
+    params: Res<BindingParams>,
+    kin: Res<Kinetics>,
+    clock: Res<Clock>,
+    seed: Res<Seed>,
+    releases: Res<Releases>,
+    mut mload: ResMut<MatrixLoad>,
+) {
     if params.desorption <= 0.0 {
         return;
     }
@@ -466,6 +532,7 @@ pub fn matrix_kinetics(params: Res<BindingParams>, clock: Res<Clock>, seed: Res<
     let (step, seed) = (clock.step, seed.0);
     let MatrixLoad { bound, held } = &mut *mload;
     for (s, (b, h)) in bound.iter_mut().zip(held.iter_mut()).enumerate() {
+        let w = kin.species[s].packet;
         b.par_chunks_mut(4096).zip(h.par_chunks_mut(4096)).enumerate().for_each(|(c, (b, h))| {
             for i in 0..b.len() {
                 if b[i] > 0 {
@@ -474,68 +541,73 @@ pub fn matrix_kinetics(params: Res<BindingParams>, clock: Res<Clock>, seed: Res<
                     let n = rng.binomial(b[i], p);
                     b[i] -= n;
                     h[i] += n;
+                    if h[i] >= w {
+                        let k = h[i] / w;
+                        h[i] -= k * w;
+                        releases.0.lock().expect("release list").push((v as u32, s as u8, k, w));
+                    }
                 }
             }
         });
     }
 }
 
-/// Gathers held particles into new packets once a packet's worth has gathered at a voxel.
+/// Turns the particles gathered at voxels into new packets, in a fixed order (voxel, species):
+/// new packet ids do not depend on which thread gathered what.
 pub fn release_held(
     lattice: Res<Lattice>,
-    kin: Res<Kinetics>,
     clock: Res<Clock>,
     seed: Res<Seed>,
+    releases: Res<Releases>,
     mut packets: ResMut<Packets>,
-    mut mload: ResMut<MatrixLoad>,
-    mut cells: Query<(&Cell, &mut CellLoad)>,
 ) {
-    let ns = kin.species.len();
-    let emit = |packets: &mut Packets, v: u32, s: usize, n: u64, tag: u64| {
+    let mut list = releases.0.lock().expect("release list");
+    if list.is_empty() {
+        return;
+    }
+    list.sort_unstable();
+    for &(v, s, n, w) in list.iter() {
         let ijk = lattice.ijk(v as usize);
-        let mut rng = stream(seed.0, Domain::Binding, u64::from(v) | (tag << 40), clock.step ^ (1 << 62));
         let c = lattice.centre(ijk);
-        let x = [
-            c[0] + (rng.uniform() - 0.5) * lattice.h,
-            c[1] + (rng.uniform() - 0.5) * lattice.h,
-            c[2] + (rng.uniform() - 0.5) * lattice.h,
-        ];
-        packets.push(&lattice, x, s as u8, n);
-    };
-    // Cells in voxel order (their spawn order), then voxels: a fixed order of new packet ids.
-    for (cell, mut load) in &mut cells {
-        for s in 0..ns {
-            let w = kin.species[s].packet;
-            if load.held[s] >= w {
-                load.held[s] -= w;
-                emit(&mut packets, cell.voxel, s, w, 100 + s as u64);
-            }
+        let mut rng = stream(seed.0, Domain::Binding, u64::from(v) | ((100 + u64::from(s)) << 40), clock.step);
+        for _ in 0..n {
+            let x = [
+                c[0] + (rng.uniform() - 0.5) * lattice.h,
+                c[1] + (rng.uniform() - 0.5) * lattice.h,
+                c[2] + (rng.uniform() - 0.5) * lattice.h,
+            ];
+            packets.push(&lattice, x, s, w);
         }
     }
-    for s in 0..ns {
-        let w = kin.species[s].packet;
-        for v in 0..mload.held[s].len() {
-            if mload.held[s][v] >= w {
-                mload.held[s][v] -= w;
-                emit(&mut packets, v as u32, s, w, 200 + s as u64);
-            }
-        }
-    }
+    list.clear();
+}
+
+/// Largest first-order rate a cell's own kinetics can reach, 1/s.
+fn fastest_cell_rate(kin: &Kinetics, p: &BindingParams) -> f64 {
+    kin.species.iter().map(|k| k.koff_single + k.kint).fold(p.receptor_recycling, f64::max)
 }
 
 /// Adds binding and uptake to the schedule.
 pub fn install(world: &mut World, schedule: &mut Schedule, params: &Params) {
     let designs = world.resource::<Designs>().clone();
     let n = world.resource::<Lattice>().len();
-    world.insert_resource(Kinetics::build(&designs, &params.binding));
+    let kin = Kinetics::build(&designs, &params.binding);
+    let k = fastest_cell_rate(&kin, &params.binding);
+    let interval = if k > 0.0 { ((0.01 / (k * params.run.time_step)).floor() as u64).clamp(1, 1000) } else { 1000 };
+    world.insert_resource(CellInterval(interval));
+    world.insert_resource(kin);
     world.insert_resource(params.binding.clone());
-    world.insert_resource(CellSites::new(n));
+    let mut sites = CellSites::new(n);
+    let mut q = world.query::<(&Cell, &Receptors)>();
+    sites.rebuild(q.iter(world));
+    world.insert_resource(sites);
+    world.init_resource::<Releases>();
+    world.init_resource::<ActiveCells>();
     world.init_resource::<EventBuffers>();
     if !world.contains_resource::<LymphFlow>() {
         world.insert_resource(LymphFlow(vec![0.0; n]));
     }
     world.insert_resource(MatrixLoad { bound: vec![vec![0; n]; designs.len()], held: vec![vec![0; n]; designs.len()] });
-    schedule.add_systems(
-        (refresh_sites, packet_reactions, cell_kinetics, matrix_kinetics, release_held).chain().in_set(Phase::Binding),
-    );
+    schedule
+        .add_systems((packet_reactions, cell_kinetics, matrix_kinetics, release_held).chain().in_set(Phase::Binding));
 }

@@ -107,16 +107,6 @@ impl FaceVelocity {
         f.z.iter_mut().for_each(|v| *v = u[2]);
         f
     }
-
-    #[inline]
-    fn faces(&self, l: &Lattice, ijk: [usize; 3]) -> [(f64, f64); 3] {
-        let [nx, ny, _] = l.n;
-        let [i, j, k] = ijk;
-        let xi = i + (nx + 1) * (j + ny * k);
-        let yi = i + nx * (j + (ny + 1) * k);
-        let zi = i + nx * (j + ny * k);
-        [(self.x[xi], self.x[xi + 1]), (self.y[yi], self.y[yi + nx]), (self.z[zi], self.z[zi + nx * ny])]
-    }
 }
 
 /// Hindered diffusion coefficient ratio `D/D0` and partition coefficient of a sphere of radius
@@ -166,61 +156,102 @@ impl MotionFields {
     }
 }
 
-/// Trilinear interpolation of `ad` and `a` at `x`, with the gradient of `ad`.
-/// Beyond the outermost voxel centres the fields are extended as constants.
-#[inline]
-fn interpolate(l: &Lattice, ad: &[f64], a: &[f64], x: &[f64; 3]) -> (f64, [f64; 3], f64) {
-    let mut base = [0usize; 3];
-    let mut t = [0.0f64; 3];
-    let mut slope = [1.0f64; 3];
-    for ax in 0..3 {
-        let u = (x[ax] - l.origin[ax]) / l.h - 0.5;
-        let hi = (l.n[ax] - 1) as f64;
-        if u <= 0.0 {
-            base[ax] = 0;
-            t[ax] = 0.0;
-            slope[ax] = 0.0;
-        } else if u >= hi {
-            base[ax] = l.n[ax].saturating_sub(2);
-            t[ax] = if l.n[ax] >= 2 { 1.0 } else { 0.0 };
-            slope[ax] = 0.0;
-        } else {
-            let f = u.floor();
-            base[ax] = (f as usize).min(l.n[ax] - 2);
-            t[ax] = u - base[ax] as f64;
+/// The lattice in the kernel's own units (voxel edges), precomputed once per step.
+struct Grid {
+    n: [usize; 3],
+    hi: [f64; 3],
+    /// Index strides of the interpolation corners (0 along an axis one voxel thick).
+    corner: [usize; 3],
+    nx: usize,
+    nxy: usize,
+}
+
+impl Grid {
+    fn new(l: &Lattice) -> Self {
+        let n = l.n;
+        Grid {
+            n,
+            hi: [n[0] as f64, n[1] as f64, n[2] as f64],
+            corner: [usize::from(n[0] > 1), if n[1] > 1 { n[0] } else { 0 }, if n[2] > 1 { n[0] * n[1] } else { 0 }],
+            nx: n[0],
+            nxy: n[0] * n[1],
         }
     }
-    // Along an axis one voxel thick, the "next" corner is the same voxel.
-    let sx = usize::from(l.n[0] > 1);
-    let sy = if l.n[1] > 1 { l.n[0] } else { 0 };
-    let sz = if l.n[2] > 1 { l.n[0] * l.n[1] } else { 0 };
-    let b = base[0] + l.n[0] * (base[1] + l.n[1] * base[2]);
-    let idx = [b, b + sx, b + sy, b + sx + sy, b + sz, b + sx + sz, b + sy + sz, b + sx + sy + sz];
-    let g: [f64; 8] = std::array::from_fn(|c| ad[idx[c]]);
-    let av: [f64; 8] = std::array::from_fn(|c| a[idx[c]]);
-    let [tx, ty, tz] = t;
-    let (ux, uy, uz) = (1.0 - tx, 1.0 - ty, 1.0 - tz);
-    let w = [
-        ux * uy * uz,
-        tx * uy * uz,
-        ux * ty * uz,
-        tx * ty * uz,
-        ux * uy * tz,
-        tx * uy * tz,
-        ux * ty * tz,
-        tx * ty * tz,
-    ];
-    let mut gi = 0.0;
-    let mut ai = 0.0;
-    for c in 0..8 {
-        gi += w[c] * g[c];
-        ai += w[c] * av[c];
+
+    /// Voxel holding lattice coordinates `u` (clamped into the box).
+    #[inline]
+    fn cell(&self, u: &[f64; 3]) -> [usize; 3] {
+        std::array::from_fn(|a| (u[a].max(0.0) as usize).min(self.n[a] - 1))
     }
-    let inv_h = 1.0 / l.h;
-    let dx = uy * uz * (g[1] - g[0]) + ty * uz * (g[3] - g[2]) + uy * tz * (g[5] - g[4]) + ty * tz * (g[7] - g[6]);
-    let dy = ux * uz * (g[2] - g[0]) + tx * uz * (g[3] - g[1]) + ux * tz * (g[6] - g[4]) + tx * tz * (g[7] - g[5]);
-    let dz = ux * uy * (g[4] - g[0]) + tx * uy * (g[5] - g[1]) + ux * ty * (g[6] - g[2]) + tx * ty * (g[7] - g[3]);
-    (gi, [dx * inv_h * slope[0], dy * inv_h * slope[1], dz * inv_h * slope[2]], ai)
+
+    /// Trilinear interpolation of `ad` and `a` at lattice coordinates `u`, with the gradient of
+    /// `ad` per voxel edge. Beyond the outermost voxel centres the fields are extended as
+    /// constants (zero gradient).
+    #[inline]
+    fn interpolate(&self, ad: &[f64], a: &[f64], u: &[f64; 3]) -> (f64, [f64; 3], f64) {
+        let mut base = [0usize; 3];
+        let mut t = [0.0f64; 3];
+        let mut slope = [1.0f64; 3];
+        for ax in 0..3 {
+            let c = u[ax] - 0.5;
+            let top = self.hi[ax] - 1.0;
+            if c <= 0.0 {
+                slope[ax] = 0.0;
+            } else if c >= top {
+                base[ax] = self.n[ax].saturating_sub(2);
+                t[ax] = if self.n[ax] >= 2 { 1.0 } else { 0.0 };
+                slope[ax] = 0.0;
+            } else {
+                let b = (c as usize).min(self.n[ax] - 2);
+                base[ax] = b;
+                t[ax] = c - b as f64;
+            }
+        }
+        let [sx, sy, sz] = self.corner;
+        let b = base[0] + self.nx * base[1] + self.nxy * base[2];
+        let idx = [b, b + sx, b + sy, b + sx + sy, b + sz, b + sx + sz, b + sy + sz, b + sx + sy + sz];
+        let g: [f64; 8] = std::array::from_fn(|c| ad[idx[c]]);
+        let av: [f64; 8] = std::array::from_fn(|c| a[idx[c]]);
+        let [tx, ty, tz] = t;
+        let (ux, uy, uz) = (1.0 - tx, 1.0 - ty, 1.0 - tz);
+        let w = [
+            ux * uy * uz,
+            tx * uy * uz,
+            ux * ty * uz,
+            tx * ty * uz,
+            ux * uy * tz,
+            tx * uy * tz,
+            ux * ty * tz,
+            tx * ty * tz,
+        ];
+        let mut gi = 0.0;
+        let mut ai = 0.0;
+        for c in 0..8 {
+            gi += w[c] * g[c];
+            ai += w[c] * av[c];
+        }
+        let dx = uy * uz * (g[1] - g[0]) + ty * uz * (g[3] - g[2]) + uy * tz * (g[5] - g[4]) + ty * tz * (g[7] - g[6]);
+        let dy = ux * uz * (g[2] - g[0]) + tx * uz * (g[3] - g[1]) + ux * tz * (g[6] - g[4]) + tx * tz * (g[7] - g[5]);
+        let dz = ux * uy * (g[4] - g[0]) + tx * uy * (g[5] - g[1]) + ux * ty * (g[6] - g[2]) + tx * ty * (g[7] - g[3]);
+        (gi, [dx * slope[0], dy * slope[1], dz * slope[2]], ai)
+    }
+
+    /// Fluid velocity at lattice coordinates `u` in voxel `c`: linear between the voxel's faces.
+    #[inline]
+    fn velocity(&self, vel: &FaceVelocity, c: &[usize; 3], u: &[f64; 3]) -> [f64; 3] {
+        let [i, j, k] = *c;
+        let [nx, ny, _] = self.n;
+        let xi = i + (nx + 1) * (j + ny * k);
+        let yi = i + nx * (j + (ny + 1) * k);
+        let zi = i + nx * (j + ny * k);
+        let s = [u[0] - i as f64, u[1] - j as f64, u[2] - k as f64];
+        let lerp = |a: f64, b: f64, t: f64| a + (b - a) * t.clamp(0.0, 1.0);
+        [
+            lerp(vel.x[xi], vel.x[xi + 1], s[0]),
+            lerp(vel.y[yi], vel.y[yi + nx], s[1]),
+            lerp(vel.z[zi], vel.z[zi + nx * ny], s[2]),
+        ]
+    }
 }
 
 /// Whether the Ito drift term is applied (switched off only to show that it is needed).
@@ -248,12 +279,16 @@ pub fn move_packets(
     if dt <= 0.0 || packets.is_empty() {
         return [0; MAX_SPECIES];
     }
-    let lmax = p.max_step_voxels * l.h;
-    let lo = l.origin;
-    let ext = l.extent();
-    let hi = [lo[0] + ext[0], lo[1] + ext[1], lo[2] + ext[2]];
+    let grid = Grid::new(l);
+    let inv_h = 1.0 / l.h;
+    let inv_h2 = inv_h * inv_h;
+    // Everything below is in lattice units: lengths in voxel edges.
+    let lmax = p.max_step_voxels;
+    let hi = grid.hi;
+    let origin = l.origin;
     let absorb = p.faces == FaceRule::Absorb;
     let uniform_increments = p.increments == Increments::Uniform;
+    let ito = drift == Drift::Ito;
     const CHUNK: usize = 2048;
     let Packets { id, pos, voxel, species, weight, .. } = packets;
     pos.par_chunks_mut(CHUNK)
@@ -271,14 +306,15 @@ pub fn move_packets(
                 let ad = &fields.ad[s];
                 let af = &fields.a[s];
                 let fc = fields.fc[s];
-                let mut x = pos[i];
+                let mut u =
+                    [(pos[i][0] - origin[0]) * inv_h, (pos[i][1] - origin[1]) * inv_h, (pos[i][2] - origin[2]) * inv_h];
                 let v0 = vox[i] as usize;
-                // Sub-steps from the coefficients of the starting voxel.
-                let d_here = if af[v0] > 0.0 { ad[v0] / af[v0] } else { 0.0 };
-                let ijk0 = l.ijk(v0);
-                let f0 = vel.faces(l, ijk0);
-                let umax = f0.iter().map(|(a, b)| a.abs().max(b.abs())).fold(0.0, f64::max) * fc.abs();
-                // Diffusive reach sqrt(6 D h) at most 3/4 of the largest move, drift at most 1/4.
+                // Sub-steps from the coefficients of the starting voxel: diffusive reach
+                // sqrt(6 D h) at most 3/4 of the largest move, drift at most 1/4 of it.
+                let d_here = if af[v0] > 0.0 { ad[v0] / af[v0] * inv_h2 } else { 0.0 };
+                let c0 = grid.cell(&u);
+                let v_here = grid.velocity(vel, &c0, &u);
+                let umax = v_here.iter().fold(0.0f64, |m, x| m.max(x.abs())) * fc.abs() * inv_h;
                 let n_diff = 6.0 * d_here * dt / (0.5625 * lmax * lmax);
                 let n_adv = 4.0 * umax * dt / lmax;
                 let nsub = n_diff.max(n_adv).ceil().clamp(1.0, 1.0e6) as u64;
@@ -286,16 +322,10 @@ pub fn move_packets(
                 let mut rng = stream(seed, Domain::Transport, ids[i], step);
                 let mut gone = false;
                 for _ in 0..nsub {
-                    let (g, grad, a) = interpolate(l, ad, af, &x);
-                    let d = if a > 0.0 { (g / a).max(0.0) } else { 0.0 };
-                    let Some(cell) = l.voxel_of(x) else { break };
-                    let faces = vel.faces(l, cell);
-                    let mut drift_v = [0.0; 3];
-                    for ax in 0..3 {
-                        let s_local = ((x[ax] - lo[ax]) / l.h - cell[ax] as f64).clamp(0.0, 1.0);
-                        let u = (1.0 - s_local) * faces[ax].0 + s_local * faces[ax].1;
-                        drift_v[ax] = fc * u + if drift == Drift::Ito && a > 0.0 { grad[ax] / a } else { 0.0 };
-                    }
+                    let (g, grad, a) = grid.interpolate(ad, af, &u);
+                    let d = if a > 0.0 { (g / a).max(0.0) * inv_h2 } else { 0.0 };
+                    let cell = grid.cell(&u);
+                    let w = grid.velocity(vel, &cell, &u);
                     let amp = (2.0 * d * h).sqrt();
                     let xi = if uniform_increments {
                         rng.unit_variance_uniform3()
@@ -303,22 +333,24 @@ pub fn move_packets(
                         let (a1, a2) = rng.normal_pair();
                         [a1, a2, rng.normal()]
                     };
+                    let ito_scale = if ito && a > 0.0 { inv_h2 / a } else { 0.0 };
                     for ax in 0..3 {
-                        x[ax] += drift_v[ax] * h + amp * xi[ax];
-                        if x[ax] < lo[ax] || x[ax] > hi[ax] {
+                        let drift_v = fc * w[ax] * inv_h + grad[ax] * ito_scale;
+                        let mut x = u[ax] + drift_v * h + amp * xi[ax];
+                        if x < 0.0 || x > hi[ax] {
                             if absorb {
                                 gone = true;
-                            } else {
-                                // Mirror back into the box (a move is far below the box size).
-                                if x[ax] < lo[ax] {
-                                    x[ax] = 2.0 * lo[ax] - x[ax];
-                                }
-                                if x[ax] > hi[ax] {
-                                    x[ax] = 2.0 * hi[ax] - x[ax];
-                                }
-                                x[ax] = x[ax].clamp(lo[ax], hi[ax]);
                             }
+                            // Mirror back into the box (a move is far below the box size).
+                            if x < 0.0 {
+                                x = -x;
+                            }
+                            if x > hi[ax] {
+                                x = 2.0 * hi[ax] - x;
+                            }
+                            x = x.clamp(0.0, hi[ax]);
                         }
+                        u[ax] = x;
                     }
                     if gone {
                         break;
@@ -329,9 +361,9 @@ pub fn move_packets(
                     wt[i] = 0;
                     continue;
                 }
-                pos[i] = x;
-                let c = l.voxel_of(x).expect("reflected packet stays inside");
-                vox[i] = l.idx(c[0], c[1], c[2]) as u32;
+                pos[i] = [origin[0] + u[0] * l.h, origin[1] + u[1] * l.h, origin[2] + u[2] * l.h];
+                let c = grid.cell(&u);
+                vox[i] = (c[0] + grid.nx * c[1] + grid.nxy * c[2]) as u32;
             }
             left
         })
