@@ -148,8 +148,8 @@ mod tests {
         let (mut s, mut n) = (0.0, 0.0);
         for v in 0..l.len() {
             let ijk = l.ijk(v);
-            for a in 0..3 {
-                if ijk[a] + lag < l.n[a] {
+            for (a, &c) in ijk.iter().enumerate() {
+                if c + lag < l.n[a] {
                     let w = v + lag * l.stride(a);
                     s += 0.5 * (f[v] - f[w]).powi(2);
                     n += 1.0;
