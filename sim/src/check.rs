@@ -21,7 +21,7 @@ fn d(section: &'static str, name: &str, value: f64, units: &'static str, note: &
 
 /// Computes the check report of a scenario.
 pub fn derived(loaded: &LoadedScenario) -> Vec<Derived> {
-    let p = Params::resolve(&loaded.scenario);
+    let p = Params::resolve_loaded(loaded);
     let l = &p.lattice;
     let mut out = Vec::new();
     let n = l.len() as f64;

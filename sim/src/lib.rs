@@ -20,6 +20,7 @@ pub mod scenario;
 pub mod tissue;
 pub mod units;
 pub mod vascular;
+pub mod vessels;
 pub mod world;
 
 pub use error::{SimError, SimResult};

@@ -1,7 +1,9 @@
 //! The processes of a step, one module each. [`install`] adds each process's resources and
 //! systems to the world and schedule, in its [`crate::world::Phase`].
 
+pub mod blood;
 pub mod output;
+pub mod plasma;
 
 use bevy_ecs::prelude::*;
 
@@ -10,6 +12,9 @@ use crate::params::Params;
 
 /// Adds every process of the scenario to the world and the step schedule.
 pub fn install(world: &mut World, schedule: &mut Schedule, params: &Params) -> SimResult<()> {
+    // Vessels and plasma first: the pressure process reads the `WallFluid` the blood process inserts.
+    blood::install(world, schedule, params)?;
+    plasma::install(world, schedule, params)?;
     output::install(world, schedule, params);
     Ok(())
 }

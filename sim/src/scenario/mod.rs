@@ -8,6 +8,7 @@
 mod sections;
 pub mod spans;
 pub mod spec;
+mod vessel_checks;
 
 use std::fmt;
 use std::path::{Path, PathBuf};
@@ -15,6 +16,7 @@ use std::path::{Path, PathBuf};
 pub use sections::*;
 use spans::SpanIndex;
 pub use spec::{Check, KeySpec, Problem, Section, SectionDoc};
+pub use vessel_checks::scenario_relative;
 
 /// Why a scenario could not be used.
 #[derive(Debug, Clone, thiserror::Error)]
@@ -100,6 +102,7 @@ const UNIT_SUFFIXES: &[&str] = &[
     "per_day",
     "mmHg_per_s",
     "percent",
+    "um_per_s",
 ];
 
 fn stem(key: &str) -> &str {
