@@ -14,8 +14,8 @@
 //! pressure, outlet nodes the outlet pressure. Radii are log-normal.
 //!
 //! Tumour: with `rho` the normalised distance from the tumour centre (0 at the centre, 1 on its
-//! surface), segments inside the necrotic core (`rho < necrotic_core_fraction`) survive with
-//! probability `core_vessel_survival`; extra nodes fill the rim shell (`rho > 1 -
+//! surface), segments reaching into the necrotic core (`rho < necrotic_core_fraction` at an end
+//! or the middle) survive with probability `core_vessel_survival`; extra nodes fill the rim shell (`rho > 1 -
 //! rim_thickness_fraction`) at `rim_density_factor - 1` times the bed's node density, each joined
 //! to its three nearest nodes (angiogenic sprouts); every segment whose midpoint is in the tumour
 //! becomes a tumour vessel with a log-normal radius, is bent at two kinks displaced sideways by up
@@ -147,8 +147,8 @@ impl Grid {
         let c = self.coord(x);
         self.cells[c[0] + self.dims[0] * (c[1] + self.dims[1] * c[2])].push(i);
     }
-    /// The `k` nearest nodes within one cell of `x`, nearest first (ties by index).
-    fn nearest(&self, nodes: &[[f64; 3]], x: [f64; 3], k: usize, exclude: u32) -> Vec<u32> {
+    /// The `k` nearest nodes within one cell of `x` that `ok` accepts, nearest first (ties by index).
+    fn nearest(&self, nodes: &[[f64; 3]], x: [f64; 3], k: usize, ok: impl Fn([f64; 3]) -> bool) -> Vec<u32> {
         let c = self.coord(x);
         let mut found: Vec<(f64, u32)> = Vec::new();
         for dz in -1i64..=1 {
@@ -161,7 +161,7 @@ impl Grid {
                     let idx = q[0] as usize + self.dims[0] * (q[1] as usize + self.dims[1] * q[2] as usize);
                     for &n in &self.cells[idx] {
                         let d = dist(nodes[n as usize], x);
-                        if n != exclude && d > 1e-9 && d <= self.cell {
+                        if d > 1e-9 && d <= self.cell && ok(nodes[n as usize]) {
                             found.push((d, n));
                         }
                     }
@@ -204,11 +204,12 @@ fn rho(g: &TumourGeometry, x: [f64; 3]) -> f64 {
 /// Turns the part of a host bed inside the tumour into tumour vessels (see the module
 /// documentation).
 pub fn add_tumour_vessels(net: &mut Network, l: &Lattice, g: &TumourGeometry, p: &NetworkParams, seed: u64) {
-    // 1. The necrotic core loses most of its vessels.
+    // 1. The necrotic core loses most of the vessels that reach into it.
     let before = std::mem::take(&mut net.segments);
     for (s, seg) in before.into_iter().enumerate() {
-        let mid = mid(net, &seg);
-        if rho(g, mid) < p.necrotic_core_fraction && rs(seed, TAG_CORE | s as u64).uniform() >= p.core_vessel_survival {
+        let (m, a, b) = (mid(net, &seg), net.nodes[seg.a as usize], net.nodes[seg.b as usize]);
+        let inner = rho(g, m).min(rho(g, a)).min(rho(g, b));
+        if inner < p.necrotic_core_fraction && rs(seed, TAG_CORE | s as u64).uniform() >= p.core_vessel_survival {
             continue;
         }
         net.segments.push(seg);
@@ -243,7 +244,8 @@ pub fn add_tumour_vessels(net: &mut Network, l: &Lattice, g: &TumourGeometry, p:
                 continue;
             }
             clamp_to_box(l, &mut x);
-            let near = grid.nearest(&net.nodes, x, 3, u32::MAX);
+            // Sprouts join nodes outside the necrotic core.
+            let near = grid.nearest(&net.nodes, x, 3, |y| rho(g, y) >= p.necrotic_core_fraction);
             if near.is_empty() {
                 continue;
             }

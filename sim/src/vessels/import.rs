@@ -163,7 +163,7 @@ fn build(
         let hi = ends.iter().map(|&i| net.nodes[i][ax]).fold(f64::NEG_INFINITY, f64::max);
         for &i in &ends {
             let t = if hi > lo { (net.nodes[i][ax] - lo) / (hi - lo) } else { 0.5 };
-            net.bc[i] = NodeBc::Pressure(p.inlet_pressure + t * (p.outlet_pressure - p.inlet_pressure));
+            net.bc[i] = NodeBc::Pressure((1.0 - t) * p.inlet_pressure + t * p.outlet_pressure);
         }
     }
     net.drop_unused_nodes();

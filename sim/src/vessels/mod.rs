@@ -18,3 +18,6 @@ pub use flow::{BloodFlow, FlowOptions};
 pub use network::{Network, NodeBc, Segment, VesselKind};
 pub use pore::{WallCoefficients, wall_coefficients};
 pub use raster::VesselRaster;
+
+#[cfg(test)]
+mod tests;
