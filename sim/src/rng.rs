@@ -140,13 +140,14 @@ impl Stream {
         if mean < 30.0 || n as f64 * (1.0 - p) < 30.0 {
             // Small mean: Poisson limit is poor for large p, so count by inversion instead.
             let (q, flip) = if p > 0.5 { (1.0 - p, true) } else { (p, false) };
-            let lnq = (1.0 - q).ln();
+            // ln(1 - q) without cancellation: tiny q must not round to ln 1 = 0.
+            let lnq = (-q).ln_1p();
             let mut k = 0u64;
             let mut pos = 0u64;
             // Geometric skips (Devroye 1986, section X.4.3): waiting times between successes.
             loop {
                 let g = (self.uniform_open0().ln() / lnq).floor() as u64;
-                pos = pos.saturating_add(g + 1);
+                pos = pos.saturating_add(g.saturating_add(1));
                 if pos > n {
                     break;
                 }

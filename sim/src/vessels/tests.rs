@@ -520,6 +520,18 @@ mod pharmacokinetics {
     }
 
     #[test]
+    fn tiny_elimination_probabilities_draw_quickly() {
+        // A renal rate far above the cut-off is ~1e-82 /h: the binomial split of cleared
+        // particles must neither loop over 1e13 trials nor overflow.
+        let mut s = stream(5, Domain::Vessels, 2, 0);
+        assert_eq!(s.binomial(DOSE, 1e-84), 0);
+        assert_eq!(s.binomial(DOSE, 1.0 - 1e-17), DOSE);
+        let mut pool = PlasmaPool::bolus("p", DOSE, 2e-6, 1e-6, Elimination::Rates { renal: 1e-86, phagocytic: 1e-5 });
+        pool.step(0.0, 60.0, &mut s);
+        assert!(pool.balanced() && pool.cleared > 0 && pool.cleared_renal == 0);
+    }
+
+    #[test]
     fn withdrawals_and_returns_keep_the_books_exact() {
         let mut pool = PlasmaPool::bolus("p", 1000, 2e-6, 1e-6, Elimination::Rates { renal: 0.0, phagocytic: 1e-3 });
         assert_eq!(pool.withdraw(300), 300);
