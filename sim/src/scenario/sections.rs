@@ -272,7 +272,7 @@ section! {
         /// Segments with slower mean blood velocity count as unperfused, micrometres per second.
         min_perfused_velocity_um_per_s: f64 = 1.0, Check::closed(0.0, 1.0e5);
         /// Relative residual at which the blood-pressure solve stops.
-        solver_tolerance: f64 = 1.0e-12, Check::closed(1.0e-15, 1.0e-4);
+        solver_tolerance: f64 = 1.0e-11, Check::closed(1.0e-15, 1.0e-4);
     }
 }
 

@@ -5,6 +5,7 @@
 //! The processes that use them live in [`crate::process::blood`] and
 //! [`crate::process::plasma`].
 
+pub mod amg;
 pub mod check;
 pub mod flow;
 pub mod generate;
