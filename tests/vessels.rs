@@ -86,6 +86,9 @@ fn network_runs_read_back_and_do_not_depend_on_threads() {
     for want in ["[vessels]", "perfused fraction", "lipo half-life", "dot renal clearance", "lipo tumour P"] {
         assert!(text.contains(want), "{want}: {text}");
     }
+    let demo = root().join("configs/network-demo.toml");
+    let out = interstice(&["check", demo.to_str().unwrap()]);
+    assert!(String::from_utf8_lossy(&out.stdout).contains("liposome half-life"));
 }
 
 #[test]
