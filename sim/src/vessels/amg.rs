@@ -25,13 +25,15 @@ pub struct Sparse {
     pub val: Vec<f64>,
 }
 
-/// Rows per parallel task; smaller systems run on one thread.
+/// Rows per parallel task.
 const CHUNK: usize = 4096;
+/// Vectors up to this length are handled on one thread (waking threads costs more).
+const SERIAL: usize = 1 << 16;
 
 /// Sets `y[i] = f(i)` for every row, in parallel over fixed chunks: each value is computed by
 /// the same sequential expression whatever the number of threads.
 pub fn par_rows(y: &mut [f64], f: impl Fn(usize, f64) -> f64 + Sync) {
-    if y.len() <= 2 * CHUNK {
+    if y.len() <= SERIAL {
         for (i, yi) in y.iter_mut().enumerate() {
             *yi = f(i, *yi);
         }
@@ -48,6 +50,13 @@ pub fn par_rows(y: &mut [f64], f: impl Fn(usize, f64) -> f64 + Sync) {
 /// `sum a_i b_i` over fixed chunks added in order: the same bits for any number of threads.
 pub fn dot(a: &[f64], b: &[f64]) -> f64 {
     use rayon::prelude::*;
+    if a.len() <= SERIAL {
+        return a
+            .chunks(CHUNK)
+            .zip(b.chunks(CHUNK))
+            .map(|(x, y)| x.iter().zip(y).map(|(p, q)| p * q).sum::<f64>())
+            .sum();
+    }
     let partial: Vec<f64> =
         a.par_chunks(CHUNK).zip(b.par_chunks(CHUNK)).map(|(x, y)| x.iter().zip(y).map(|(p, q)| p * q).sum()).collect();
     partial.iter().sum()
@@ -66,11 +75,6 @@ impl Sparse {
     /// `y = A x`.
     pub fn mul(&self, x: &[f64], y: &mut [f64]) {
         par_rows(&mut y[..self.rows], |i, _| self.row_dot(i, x));
-    }
-
-    /// `y += A x`.
-    fn mul_add(&self, x: &[f64], y: &mut [f64]) {
-        par_rows(&mut y[..self.rows], |i, yi| yi + self.row_dot(i, x));
     }
 
     fn diagonal(&self) -> Vec<f64> {
@@ -326,18 +330,70 @@ impl Dense {
     }
 }
 
+/// A sparse matrix in single precision, for the cycle (the setup is in double precision).
+#[derive(Debug, Clone, Default)]
+struct Sparse32 {
+    rows: usize,
+    start: Vec<usize>,
+    col: Vec<u32>,
+    val: Vec<f32>,
+}
+
+impl Sparse32 {
+    fn from(a: &Sparse) -> Self {
+        Sparse32 {
+            rows: a.rows,
+            start: a.start.clone(),
+            col: a.col.clone(),
+            val: a.val.iter().map(|&v| v as f32).collect(),
+        }
+    }
+
+    #[inline]
+    fn row_dot(&self, i: usize, x: &[f32]) -> f32 {
+        let mut s = 0.0f32;
+        for k in self.start[i]..self.start[i + 1] {
+            s += self.val[k] * x[self.col[k] as usize];
+        }
+        s
+    }
+
+    /// `y = A x` or `y += A x`.
+    fn mul(&self, x: &[f32], y: &mut [f32], add: bool) {
+        par_rows32(&mut y[..self.rows], |i, yi| if add { yi + self.row_dot(i, x) } else { self.row_dot(i, x) });
+    }
+}
+
+/// [`par_rows`] for single precision.
+fn par_rows32(y: &mut [f32], f: impl Fn(usize, f32) -> f32 + Sync) {
+    if y.len() <= SERIAL {
+        for (i, yi) in y.iter_mut().enumerate() {
+            *yi = f(i, *yi);
+        }
+        return;
+    }
+    use rayon::prelude::*;
+    y.par_chunks_mut(CHUNK).enumerate().for_each(|(c, ys)| {
+        for (k, yi) in ys.iter_mut().enumerate() {
+            *yi = f(c * CHUNK + k, *yi);
+        }
+    });
+}
+
+/// One level of the cycle, in single precision: a V-cycle is a preconditioner, its rounding
+/// only changes how fast the double-precision conjugate gradients converge, not their result.
 #[derive(Debug, Clone)]
 struct Level {
-    a: Sparse,
-    diag: Vec<f64>,
+    a: Sparse32,
+    inv_diag: Vec<f32>,
     /// Position of the diagonal entry in each row (columns are sorted).
     dpos: Vec<usize>,
-    p: Sparse,
-    r: Sparse,
+    p: Sparse32,
+    r: Sparse32,
     /// Work vectors: solution, right-hand side, residual of this level.
-    x: Vec<f64>,
-    b: Vec<f64>,
-    res: Vec<f64>,
+    x: Vec<f32>,
+    b: Vec<f32>,
+    res: Vec<f32>,
 }
 
 /// The multigrid hierarchy of one matrix.
@@ -347,6 +403,8 @@ pub struct Amg {
     coarse: Dense,
     coarse_b: Vec<f64>,
     coarse_x: Vec<f64>,
+    coarse_b32: Vec<f32>,
+    coarse_x32: Vec<f32>,
 }
 
 impl Amg {
@@ -367,11 +425,27 @@ impl Amg {
             let dpos = (0..n)
                 .map(|i| (cur.start[i]..cur.start[i + 1]).find(|&k| cur.col[k] as usize == i).unwrap_or(cur.start[i]))
                 .collect();
-            levels.push(Level { a: cur, diag, dpos, p, r, x: vec![0.0; n], b: vec![0.0; n], res: vec![0.0; n] });
+            levels.push(Level {
+                a: Sparse32::from(&cur),
+                inv_diag: diag.iter().map(|&d| (1.0 / d) as f32).collect(),
+                dpos,
+                p: Sparse32::from(&p),
+                r: Sparse32::from(&r),
+                x: vec![0.0; n],
+                b: vec![0.0; n],
+                res: vec![0.0; n],
+            });
             cur = coarse;
         }
         let n = cur.rows;
-        Amg { levels, coarse: Dense::factor(&cur), coarse_b: vec![0.0; n], coarse_x: vec![0.0; n] }
+        Amg {
+            levels,
+            coarse: Dense::factor(&cur),
+            coarse_b: vec![0.0; n],
+            coarse_x: vec![0.0; n],
+            coarse_b32: vec![0.0; n],
+            coarse_x32: vec![0.0; n],
+        }
     }
 
     /// Number of levels, the direct coarsest one included.
@@ -385,9 +459,19 @@ impl Amg {
             self.coarse.solve(r, z);
             return;
         }
-        self.levels[0].b.copy_from_slice(r);
+        // Scaled into single precision's range; the cycle is linear, so the scale comes back out.
+        let scale = r.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+        if scale == 0.0 {
+            z.iter_mut().for_each(|v| *v = 0.0);
+            return;
+        }
+        for (b, &v) in self.levels[0].b.iter_mut().zip(r) {
+            *b = (v / scale) as f32;
+        }
         self.cycle(0);
-        z.copy_from_slice(&self.levels[0].x);
+        for (zi, &x) in z.iter_mut().zip(&self.levels[0].x) {
+            *zi = x as f64 * scale;
+        }
     }
 
     fn cycle(&mut self, k: usize) {
@@ -396,38 +480,44 @@ impl Amg {
         // Forward Gauss-Seidel from x = 0 is forward substitution with the lower triangle, and
         // leaves the residual -U x (the upper triangle's part): half the work of a sweep plus a
         // residual.
-        forward_from_zero(&lv.a, &lv.dpos, &lv.diag, &lv.b, &mut lv.x);
+        forward_from_zero(&lv.a, &lv.dpos, &lv.inv_diag, &lv.b, &mut lv.x);
         upper_residual(&lv.a, &lv.dpos, &lv.x, &mut lv.res);
         if let Some(next) = tail.first_mut() {
-            lv.r.mul(&lv.res, &mut next.b);
+            lv.r.mul(&lv.res, &mut next.b, false);
             self.cycle(k + 1);
             let (head, tail) = self.levels.split_at_mut(k + 1);
-            head[k].p.mul_add(&tail[0].x, &mut head[k].x);
+            head[k].p.mul(&tail[0].x, &mut head[k].x, true);
         } else {
-            lv.r.mul(&lv.res, &mut self.coarse_b);
+            lv.r.mul(&lv.res, &mut self.coarse_b32, false);
+            for (b, &v) in self.coarse_b.iter_mut().zip(&self.coarse_b32) {
+                *b = v as f64;
+            }
             self.coarse.solve(&self.coarse_b, &mut self.coarse_x);
-            lv.p.mul_add(&self.coarse_x, &mut lv.x);
+            for (x32, &v) in self.coarse_x32.iter_mut().zip(&self.coarse_x) {
+                *x32 = v as f32;
+            }
+            lv.p.mul(&self.coarse_x32, &mut lv.x, true);
         }
         let lv = &mut self.levels[k];
-        gauss_seidel(&lv.a, &lv.diag, &lv.b, &mut lv.x, true);
+        backward_gauss_seidel(&lv.a, &lv.inv_diag, &lv.b, &mut lv.x);
     }
 }
 
 /// Forward Gauss-Seidel sweep from a zero guess: `x_i = (b_i - sum_{j<i} a_ij x_j) / a_ii`.
-fn forward_from_zero(a: &Sparse, dpos: &[usize], diag: &[f64], b: &[f64], x: &mut [f64]) {
+fn forward_from_zero(a: &Sparse32, dpos: &[usize], inv_diag: &[f32], b: &[f32], x: &mut [f32]) {
     for i in 0..a.rows {
         let mut s = b[i];
         for k in a.start[i]..dpos[i] {
             s -= a.val[k] * x[a.col[k] as usize];
         }
-        x[i] = s / diag[i];
+        x[i] = s * inv_diag[i];
     }
 }
 
 /// The residual `b - A x` after [`forward_from_zero`]: `-sum_{j>i} a_ij x_j`.
-fn upper_residual(a: &Sparse, dpos: &[usize], x: &[f64], res: &mut [f64]) {
-    par_rows(&mut res[..a.rows], |i, _| {
-        let mut s = 0.0;
+fn upper_residual(a: &Sparse32, dpos: &[usize], x: &[f32], res: &mut [f32]) {
+    par_rows32(&mut res[..a.rows], |i, _| {
+        let mut s = 0.0f32;
         for k in dpos[i] + 1..a.start[i + 1] {
             s -= a.val[k] * x[a.col[k] as usize];
         }
@@ -435,10 +525,9 @@ fn upper_residual(a: &Sparse, dpos: &[usize], x: &[f64], res: &mut [f64]) {
     });
 }
 
-/// One Gauss-Seidel sweep, forward or backward.
-fn gauss_seidel(a: &Sparse, diag: &[f64], b: &[f64], x: &mut [f64], backward: bool) {
-    let n = a.rows;
-    let mut row = |i: usize| {
+/// One backward Gauss-Seidel sweep.
+fn backward_gauss_seidel(a: &Sparse32, inv_diag: &[f32], b: &[f32], x: &mut [f32]) {
+    for i in (0..a.rows).rev() {
         let mut s = b[i];
         for k in a.start[i]..a.start[i + 1] {
             let j = a.col[k] as usize;
@@ -446,11 +535,6 @@ fn gauss_seidel(a: &Sparse, diag: &[f64], b: &[f64], x: &mut [f64], backward: bo
                 s -= a.val[k] * x[j];
             }
         }
-        x[i] = s / diag[i];
-    };
-    if backward {
-        (0..n).rev().for_each(&mut row);
-    } else {
-        (0..n).for_each(&mut row);
+        x[i] = s * inv_diag[i];
     }
 }
