@@ -545,3 +545,59 @@ mod pharmacokinetics {
         assert!(pool.balanced() && pool.cleared > 0);
     }
 }
+
+#[test]
+fn dead_ends_and_unanchored_pieces_are_unperfused() {
+    // A tube with a dead-end branch, and a separate loop without any boundary condition.
+    let mut net = Network::default();
+    let a = net.add_node([0.0; 3], NodeBc::Pressure(4000.0));
+    let b = net.add_node([2e-4, 0.0, 0.0], NodeBc::None);
+    let c = net.add_node([4e-4, 0.0, 0.0], NodeBc::Pressure(2000.0));
+    let d = net.add_node([2e-4, 2e-4, 0.0], NodeBc::None);
+    let e = net.add_node([0.0, 5e-4, 0.0], NodeBc::None);
+    let f = net.add_node([2e-4, 5e-4, 0.0], NodeBc::None);
+    net.segments.extend([seg(a, b, 4e-6, 2e-4), seg(b, c, 4e-6, 2e-4), seg(b, d, 4e-6, 2e-4), seg(e, f, 4e-6, 2e-4)]);
+    let fl = solve(&net, &newtonian()).unwrap();
+    assert_eq!(fl.perfused, vec![true, true, false, false]);
+    assert!((fl.node_pressure[d as usize] - 3000.0).abs() < 1e-9, "the dead end sits at the branch pressure");
+    assert!(fl.node_pressure[e as usize].is_nan() && fl.mid_pressure[3].is_nan());
+    assert_eq!(fl.flow[3], 0.0);
+    assert_eq!(fl.perfused_fraction(), 0.5);
+}
+
+#[test]
+fn network_wall_fluid_sums_starling_terms_of_perfused_walls() {
+    use crate::process::blood::{BloodSettings, network_wall_fluid, segment_walls};
+    // One host tube along x through the middle of a 4-voxel row, pressures 30 and 20 mmHg.
+    let p = small_scenario_params();
+    let l = Lattice::new([4, 1, 1], 1e-4, [0.0; 3]);
+    let regions = crate::tissue::Regions::from_geometry(&l, &TumourGeometry { centre: [1.0; 3], semi_axes: [1e-9; 3] });
+    let mm = crate::units::MMHG;
+    let mut net = Network::default();
+    let a = net.add_node([0.0, 5e-5, 5e-5], NodeBc::Pressure(30.0 * mm));
+    let b = net.add_node([4e-4, 5e-5, 5e-5], NodeBc::Pressure(20.0 * mm));
+    net.segments.push(seg(a, b, 5e-6, 4e-4));
+    let settings = BloodSettings {
+        flow: newtonian(),
+        network: p.network.clone(),
+        blood: p.blood.clone(),
+        starling: p.starling.clone(),
+        continuum: p.continuum_vessels.clone(),
+        particles: vec![],
+    };
+    let flow = solve(&net, &settings.flow).unwrap();
+    let raster = VesselRaster::build(&net, &l);
+    let walls = segment_walls(&net, &settings);
+    let wf = network_wall_fluid(&l, &regions, &net, &raster, &flow, &walls, &p.starling);
+    // Starling (Baxter and Jain 1989 form): each voxel holds a quarter of the wall area 2 pi r L;
+    // Lp from pore theory gamma r0^2 / (8 mu Lw); drive = Lp S (p_mid - sigma_T (pi_v - pi_i)).
+    let seg0 = &net.segments[0];
+    let lp = seg0.pore_fraction * seg0.pore_radius.powi(2) / (8.0 * p.blood.plasma_viscosity * seg0.wall_thickness);
+    let s_vox = seg0.wall_area() / 4.0;
+    let onc = p.starling.protein_reflection[0] * (p.starling.plasma_oncotic - p.starling.interstitial_oncotic[0]);
+    for v in 0..4 {
+        assert!((wf.lp_s.data[v] - lp * s_vox).abs() <= 1e-12 * lp * s_vox, "voxel {v}");
+        let want = lp * s_vox * (25.0 * mm - onc);
+        assert!((wf.drive.data[v] - want).abs() <= 1e-12 * want.abs(), "voxel {v}: {} {want}", wf.drive.data[v]);
+    }
+}
