@@ -110,6 +110,10 @@ pub struct ContinuumVesselParams {
     pub wall_conductivity: [f64; 2],
     /// Vascular pressure, Pa.
     pub vascular_pressure: f64,
+    /// Pore radius of the walls, m, host and tumour.
+    pub pore_radius: [f64; 2],
+    /// Wall thickness (pore length), m.
+    pub wall_thickness: f64,
 }
 
 /// The circulating blood.
@@ -321,6 +325,8 @@ impl Params {
                         cm_per_mmhg_s(c.tumour_wall_conductivity_cm_per_mmHg_s),
                     ],
                     vascular_pressure: c.vascular_pressure_mmHg * MMHG,
+                    pore_radius: [c.host_pore_radius_nm * NM, c.tumour_pore_radius_nm * NM],
+                    wall_thickness: c.wall_thickness_um * UM,
                 }
             },
             transport: crate::process::transport::TransportParams {

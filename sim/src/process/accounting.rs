@@ -22,7 +22,8 @@ use crate::world::{Clock, SpeciesNames};
 /// Running totals of what entered and what left the tissue, per species.
 #[derive(Resource, Debug, Clone, Default, PartialEq)]
 pub struct Ledger {
-    /// Particles given to the plasma (doses), or placed directly in the tissue by a test.
+    /// Particles placed directly in the tissue (tests); doses given to the plasma are counted by
+    /// the plasma pools.
     pub injected: Vec<u64>,
     /// Particles drained by lymphatics.
     pub drained: Vec<u64>,
@@ -42,18 +43,13 @@ impl Ledger {
     }
 }
 
-/// Reads the plasma compartment, if the run has one.
-pub type PlasmaReader = fn(&World, usize) -> (u64, u64);
-
-/// How the ledger reads the plasma compartment (installed by the plasma process).
-#[derive(Resource, Clone, Copy)]
-pub struct PlasmaSource(pub PlasmaReader);
-
 /// Where one species is, in particles.
 #[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
 pub struct Balance {
     pub injected: u64,
     pub plasma: u64,
+    /// The peripheral compartment of a two-compartment plasma model.
+    pub peripheral: u64,
     pub cleared: u64,
     pub free: u64,
     pub bound_cells: u64,
@@ -67,6 +63,7 @@ impl Balance {
     /// Sum of every place the particles can be.
     pub fn accounted(&self) -> u64 {
         self.plasma
+            + self.peripheral
             + self.cleared
             + self.free
             + self.bound_cells
@@ -82,15 +79,16 @@ pub fn balances(world: &World) -> Vec<Balance> {
     let ledger = world.resource::<Ledger>();
     let packets = world.resource::<Packets>();
     let mload = world.resource::<MatrixLoad>();
-    let plasma = world.get_resource::<PlasmaSource>().copied();
+    let pools = world.get_resource::<crate::process::plasma::PlasmaPools>();
     let n = ledger.species();
     let mut out: Vec<Balance> = (0..n)
         .map(|s| {
-            let (plasma, cleared) = plasma.map(|p| (p.0)(world, s)).unwrap_or((0, 0));
+            let pool = pools.map(|p| p.get(s));
             Balance {
-                injected: ledger.injected[s],
-                plasma,
-                cleared,
+                injected: ledger.injected[s] + pool.map_or(0, |p| p.dose),
+                plasma: pool.map_or(0, |p| p.amount),
+                peripheral: pool.map_or(0, |p| p.peripheral),
+                cleared: pool.map_or(0, |p| p.cleared),
                 free: packets.particles(s) + mload.held[s].iter().sum::<u64>(),
                 bound_matrix: mload.bound[s].iter().sum(),
                 drained: ledger.drained[s],
@@ -148,12 +146,22 @@ pub struct SpeciesLabels {
     /// `free_<s>`, `bound_<s>`, `internalised_<s>`, `matrix_bound_<s>`.
     pub fields: Vec<[&'static str; 4]>,
     /// Series names, in the order of [`SERIES`].
-    pub series: Vec<[&'static str; 9]>,
+    pub series: Vec<[&'static str; 10]>,
 }
 
 /// The per-species time series, in order.
-pub const SERIES: [&str; 9] =
-    ["injected", "plasma", "cleared", "free", "bound_cells", "bound_matrix", "internalised", "drained", "left"];
+pub const SERIES: [&str; 10] = [
+    "injected",
+    "plasma",
+    "peripheral",
+    "cleared",
+    "free",
+    "bound_cells",
+    "bound_matrix",
+    "internalised",
+    "drained",
+    "left",
+];
 
 impl SpeciesLabels {
     fn new(names: &[String]) -> Self {
@@ -233,6 +241,7 @@ fn series_part(world: &World, out: &mut Vec<(&'static str, &'static str, f64)>) 
         let values = [
             bal.injected,
             bal.plasma,
+            bal.peripheral,
             bal.cleared,
             bal.free,
             bal.bound_cells,

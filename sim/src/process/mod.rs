@@ -4,6 +4,7 @@
 pub mod accounting;
 pub mod binding;
 pub mod blood;
+pub mod exchange;
 pub mod output;
 pub mod plasma;
 pub mod transport;
@@ -22,6 +23,7 @@ pub fn install(world: &mut World, schedule: &mut Schedule, params: &Params) -> S
     world.insert_resource(params.designs.clone());
     accounting::install(world);
     transport::install(world, schedule, params);
+    exchange::install(world, schedule, params);
     binding::install(world, schedule, params);
     Ok(())
 }

@@ -8,7 +8,6 @@ use bevy_ecs::prelude::*;
 
 use crate::error::{SimError, SimResult};
 use crate::params::Params;
-use crate::process::output;
 use crate::rng::{Domain, stream};
 use crate::vessels::pk::{Elimination, PlasmaPool};
 use crate::world::{Clock, Faults, Phase, Seed, SpeciesNames};
@@ -20,8 +19,6 @@ pub const STREAM_TAG: u64 = 6 << 56;
 #[derive(Resource, Debug, Clone, Default)]
 pub struct PlasmaPools {
     pub pools: Vec<PlasmaPool>,
-    /// Series names of each species: plasma amount, cleared amount.
-    series_names: Vec<[&'static str; 2]>,
 }
 
 impl PlasmaPools {
@@ -55,21 +52,10 @@ pub fn install(world: &mut World, schedule: &mut Schedule, params: &Params) -> S
         return Ok(());
     }
     let pools = pools(params)?;
-    // Series names live as long as the program (a few short strings per run).
-    let series_names = pools
-        .iter()
-        .map(|p| {
-            [
-                &*Box::leak(format!("plasma_{}", p.name).into_boxed_str()),
-                &*Box::leak(format!("cleared_{}", p.name).into_boxed_str()),
-            ]
-        })
-        .collect();
     if !world.contains_resource::<SpeciesNames>() {
         world.insert_resource(SpeciesNames(pools.iter().map(|p| p.name.clone()).collect()));
     }
-    world.insert_resource(PlasmaPools { pools, series_names });
-    output::add_series(world, plasma_series);
+    world.insert_resource(PlasmaPools { pools });
     schedule.add_systems(step_plasma.in_set(Phase::Blood));
     Ok(())
 }
@@ -86,13 +72,5 @@ pub fn step_plasma(mut pools: ResMut<PlasmaPools>, clock: Res<Clock>, seed: Res<
                 what: format!("plasma pool of {} does not balance: {pool:?}", pool.name),
             });
         }
-    }
-}
-
-fn plasma_series(world: &World, out: &mut Vec<(&'static str, &'static str, f64)>) {
-    let p = world.resource::<PlasmaPools>();
-    for (pool, names) in p.pools.iter().zip(&p.series_names) {
-        out.push((names[0], "particles", pool.amount as f64));
-        out.push((names[1], "particles", pool.cleared as f64));
     }
 }

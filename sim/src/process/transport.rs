@@ -39,7 +39,7 @@ use crate::particles::hindrance::{
 };
 use crate::particles::{Designs, Packets};
 use crate::rng::{Domain, stream};
-use crate::scenario::{FaceRule, MatrixHindrance, Increments};
+use crate::scenario::{FaceRule, Increments, MatrixHindrance};
 use crate::tissue::{MAX_SPECIES, Matrix};
 use crate::world::{Clock, Phase, Seed};
 

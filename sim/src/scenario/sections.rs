@@ -121,6 +121,12 @@ section! {
         tumour_wall_conductivity_cm_per_mmHg_s: f64 = 2.8e-7, Check::closed(0.0, 1.0e-3);
         /// Vascular (capillary) pressure, mmHg.
         vascular_pressure_mmHg: f64 = 25.0, Check::closed(0.0, 200.0);
+        /// Radius of the pores of host vessel walls, nm (continuous capillaries: a few nm).
+        host_pore_radius_nm: f64 = 6.0, Check::closed(0.5, 5000.0);
+        /// Radius of the pores of tumour vessel walls, nm (hundreds of nm: Hobbs et al. 1998).
+        tumour_pore_radius_nm: f64 = 200.0, Check::closed(0.5, 5000.0);
+        /// Thickness of the vessel wall (pore length), um.
+        wall_thickness_um: f64 = 1.0, Check::closed(0.01, 100.0);
     }
 }
 
