@@ -17,6 +17,7 @@ pub mod progress;
 pub mod provenance;
 pub mod rng;
 pub mod scenario;
+pub mod solver;
 pub mod tissue;
 pub mod units;
 pub mod vascular;

@@ -2,6 +2,7 @@
 //! systems to the world and schedule, in its [`crate::world::Phase`].
 
 pub mod output;
+pub mod pressure;
 
 use bevy_ecs::prelude::*;
 
@@ -11,5 +12,6 @@ use crate::params::Params;
 /// Adds every process of the scenario to the world and the step schedule.
 pub fn install(world: &mut World, schedule: &mut Schedule, params: &Params) -> SimResult<()> {
     output::install(world, schedule, params);
+    pressure::install(world, schedule, params)?;
     Ok(())
 }

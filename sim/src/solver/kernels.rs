@@ -1,0 +1,416 @@
+//! The hot loops: operator application, residual and red-black Gauss-Seidel, on padded storage.
+//!
+//! Rows are processed on fixed-length slices (or fixed-size chunks) so that bounds checks leave
+//! the inner loops and the compiler can vectorise them.
+//!
+//! A red-black sweep (colour `c1` then `c2`) runs as a wavefront over z-planes: colour `c1` on
+//! plane `k + 1`, then `c2` on plane `k`, then (optionally) the residual on plane `k - 1`, so each
+//! array is streamed once per sweep instead of once per colour. Threads own slabs of planes. The
+//! result is that of the plain two-pass sweep, bit for bit, for any slab count: every cell is
+//! updated by the same expression from the same inputs (cells of one colour only neighbour cells
+//! of the other). Ownership rules that keep threads from racing (see [`sweep`]): a row is read
+//! whole (vectorised) only when every plane it reads belongs to the reading thread in that phase;
+//! rows next to another thread's slab read only the cells no thread writes in that phase.
+
+use rayon::prelude::*;
+
+use super::grid::Grid;
+
+/// A 7-point operator as the kernels see it: face transmissibilities per axis, the diagonal term
+/// `c` and the inverse of the matrix diagonal `1 / (c + sum of the faces)`, all padded.
+#[derive(Clone, Copy)]
+pub struct OpView<'a> {
+    pub g: Grid,
+    pub tx: &'a [f64],
+    pub ty: &'a [f64],
+    pub tz: &'a [f64],
+    pub c: &'a [f64],
+    pub inv_d: &'a [f64],
+}
+
+impl OpView<'_> {
+    fn check(&self) {
+        let n = self.g.len;
+        assert!(
+            self.tx.len() == n
+                && self.ty.len() == n
+                && self.tz.len() == n
+                && self.c.len() == n
+                && self.inv_d.len() == n
+        );
+    }
+}
+
+/// Cells per chunk of a vectorised row update.
+const CHUNK: usize = 64;
+
+/// `(A u)` along one row: `out[i] = c u + sum_f T_f (u - u_f)` for the `nx = out.len()` cells
+/// starting at padded index `p0`.
+#[inline(always)]
+fn row_apply(op: &OpView<'_>, u: &[f64], p0: usize, out: &mut [f64]) {
+    let nx = out.len();
+    let (sy, sz) = (op.g.sy, op.g.sz);
+    let uc = &u[p0 - 1..p0 + nx + 1];
+    let us = &u[p0 - sy..p0 - sy + nx];
+    let un = &u[p0 + sy..p0 + sy + nx];
+    let ud = &u[p0 - sz..p0 - sz + nx];
+    let uu = &u[p0 + sz..p0 + sz + nx];
+    let tx = &op.tx[p0..p0 + nx + 1];
+    let tys = &op.ty[p0..p0 + nx];
+    let tyn = &op.ty[p0 + sy..p0 + sy + nx];
+    let tzd = &op.tz[p0..p0 + nx];
+    let tzu = &op.tz[p0 + sz..p0 + sz + nx];
+    let c = &op.c[p0..p0 + nx];
+    for i in 0..nx {
+        let v = uc[i + 1];
+        out[i] = c[i] * v
+            + tx[i] * (v - uc[i])
+            + tx[i + 1] * (v - uc[i + 2])
+            + tys[i] * (v - us[i])
+            + tyn[i] * (v - un[i])
+            + tzd[i] * (v - ud[i])
+            + tzu[i] * (v - uu[i]);
+    }
+}
+
+/// `out = A u` on the interior; ghosts of `out` untouched.
+pub fn apply(op: &OpView<'_>, u: &[f64], out: &mut [f64]) {
+    op.check();
+    let g = op.g;
+    let nx = g.n[0];
+    g.planes(out, |k, pl| {
+        for j in 1..=g.n[1] {
+            let p0 = g.sz * k + g.sy * j + 1;
+            let o = g.sy * j + 1;
+            row_apply(op, u, p0, &mut pl[o..o + nx]);
+        }
+    });
+}
+
+/// `out = A u`; returns `u . out` (partials per plane, added in plane order).
+pub fn apply_dot(op: &OpView<'_>, u: &[f64], out: &mut [f64], partials: &mut [f64]) -> f64 {
+    op.check();
+    let g = op.g;
+    let nx = g.n[0];
+    g.planes_sum(out, partials, |k, pl| {
+        let mut s = 0.0;
+        for j in 1..=g.n[1] {
+            let p0 = g.sz * k + g.sy * j + 1;
+            let o = g.sy * j + 1;
+            let row = &mut pl[o..o + nx];
+            row_apply(op, u, p0, row);
+            s += dot_row(&u[p0..p0 + nx], row);
+        }
+        s
+    })
+}
+
+/// `r = f - A u` on the interior.
+#[cfg(test)]
+pub fn residual(op: &OpView<'_>, u: &[f64], f: &[f64], r: &mut [f64]) {
+    op.check();
+    let g = op.g;
+    let nx = g.n[0];
+    g.planes(r, |k, pl| {
+        for j in 1..=g.n[1] {
+            let p0 = g.sz * k + g.sy * j + 1;
+            let o = g.sy * j + 1;
+            let row = &mut pl[o..o + nx];
+            row_apply(op, u, p0, row);
+            let fr = &f[p0..p0 + nx];
+            for i in 0..nx {
+                row[i] = fr[i] - row[i];
+            }
+        }
+    });
+}
+
+/// Four-way unrolled dot product of two equal slices (fixed association order).
+#[inline]
+pub fn dot_row(a: &[f64], b: &[f64]) -> f64 {
+    let n = a.len();
+    let b = &b[..n];
+    let mut s = [0.0f64; 4];
+    let chunks = n / 4;
+    for c in 0..chunks {
+        for l in 0..4 {
+            s[l] += a[4 * c + l] * b[4 * c + l];
+        }
+    }
+    let mut tail = 0.0;
+    for i in 4 * chunks..n {
+        tail += a[i] * b[i];
+    }
+    (s[0] + s[1]) + (s[2] + s[3]) + tail
+}
+
+/// Pointers to vectors that several threads write at disjoint cells during a sweep.
+#[derive(Clone, Copy)]
+struct Shared {
+    u: *mut f64,
+    r: *mut f64,
+}
+// SAFETY: only `sweep` dereferences these, under the ownership rules stated there.
+unsafe impl Send for Shared {}
+unsafe impl Sync for Shared {}
+
+/// How a row update may read the vector.
+#[derive(Clone, Copy, PartialEq, Eq)]
+enum Read {
+    /// Whole rows of planes `k - 1..=k + 1`, which the calling thread owns in this phase.
+    Rows,
+    /// Only the cells of the other colour (which no thread writes in this phase).
+    OtherColour,
+    /// Nothing: the vector is zero before this sweep (first colour of a sweep from zero).
+    Zero,
+}
+
+/// Updates the cells of one colour in the row of interior coordinates `(j, k)` (padded plane
+/// `kp = k + 1`, padded row `jp`) to `(f + sum T u_nb) / d`.
+///
+/// # Safety
+/// `u` points to a padded vector of `op.g.len` values; the caller guarantees the [`Read`]
+/// contract: no other thread writes a value this call reads, and no other thread reads or writes
+/// a cell of this colour in this row.
+#[inline(always)]
+unsafe fn row_colour(op: &OpView<'_>, u: *mut f64, f: &[f64], kp: usize, jp: usize, colour: usize, read: Read) {
+    let g = op.g;
+    let nx = g.n[0];
+    let (sy, sz) = (g.sy, g.sz);
+    let first = (colour + (jp - 1) + (kp - 1)) % 2; // interior i of the first cell of the colour
+    let row0 = sz * kp + sy * jp + 1; // padded index of interior i = 0
+    match read {
+        Read::Zero => {
+            let mut i = first;
+            while i < nx {
+                let p = row0 + i;
+                // SAFETY: p is an interior cell of this row (contract above).
+                unsafe { *u.add(p) = f[p] * op.inv_d[p] };
+                i += 2;
+            }
+        }
+        Read::OtherColour => {
+            let mut i = first;
+            while i < nx {
+                let p = row0 + i;
+                // SAFETY: p and its six neighbours lie in the padded vector; the neighbours are of
+                // the other colour (or ghosts), which no thread writes now (contract above).
+                unsafe {
+                    let s = f[p]
+                        + op.tx[p] * *u.add(p - 1)
+                        + op.tx[p + 1] * *u.add(p + 1)
+                        + op.ty[p] * *u.add(p - sy)
+                        + op.ty[p + sy] * *u.add(p + sy)
+                        + op.tz[p] * *u.add(p - sz)
+                        + op.tz[p + sz] * *u.add(p + sz);
+                    *u.add(p) = s * op.inv_d[p];
+                }
+                i += 2;
+            }
+        }
+        Read::Rows => {
+            let mut v = [0.0f64; CHUNK];
+            let mut i0 = 0;
+            while i0 < nx {
+                let m = CHUNK.min(nx - i0);
+                let p0 = row0 + i0;
+                {
+                    // SAFETY: planes kp - 1..=kp + 1 belong to this thread in this phase, so no
+                    // other thread writes these rows while the shared slices live; the writes of
+                    // this thread happen after the slices are dropped.
+                    let (uc, us, un, ud, uu) = unsafe {
+                        (
+                            std::slice::from_raw_parts(u.add(p0 - 1), m + 2),
+                            std::slice::from_raw_parts(u.add(p0 - sy), m),
+                            std::slice::from_raw_parts(u.add(p0 + sy), m),
+                            std::slice::from_raw_parts(u.add(p0 - sz), m),
+                            std::slice::from_raw_parts(u.add(p0 + sz), m),
+                        )
+                    };
+                    let tx = &op.tx[p0..p0 + m + 1];
+                    let tys = &op.ty[p0..p0 + m];
+                    let tyn = &op.ty[p0 + sy..p0 + sy + m];
+                    let tzd = &op.tz[p0..p0 + m];
+                    let tzu = &op.tz[p0 + sz..p0 + sz + m];
+                    let fr = &f[p0..p0 + m];
+                    let id = &op.inv_d[p0..p0 + m];
+                    let v = &mut v[..m];
+                    for i in 0..m {
+                        let s = fr[i]
+                            + tx[i] * uc[i]
+                            + tx[i + 1] * uc[i + 2]
+                            + tys[i] * us[i]
+                            + tyn[i] * un[i]
+                            + tzd[i] * ud[i]
+                            + tzu[i] * uu[i];
+                        v[i] = s * id[i];
+                    }
+                }
+                // Keep the cells of this colour. A cell of the other colour in this chunk was
+                // computed from a neighbour that may just have changed: it is discarded.
+                let mut i = (first + i0) % 2;
+                while i < m {
+                    // SAFETY: interior cell of this thread's plane.
+                    unsafe { *u.add(p0 + i) = v[i] };
+                    i += 2;
+                }
+                i0 += m;
+            }
+        }
+    }
+}
+
+/// Residual `f - A u` in the row `(jp, kp)` at the cells of `colour`, zero at the other cells
+/// (where the sweep just solved the equations exactly, up to rounding).
+///
+/// # Safety
+/// `u` and `r` point to padded vectors of `op.g.len` values; no other thread writes planes
+/// `kp - 1..=kp + 1` of `u` or this row of `r` during the call.
+#[inline(always)]
+unsafe fn row_residual(op: &OpView<'_>, u: *const f64, f: &[f64], r: *mut f64, kp: usize, jp: usize, colour: usize) {
+    let g = op.g;
+    let nx = g.n[0];
+    let p0 = g.sz * kp + g.sy * jp + 1;
+    let base = g.sz * (kp - 1);
+    // SAFETY: see the contract above: the three planes of `u` are only read, and the row of `r`
+    // belongs to this call.
+    let (uu, out) =
+        unsafe { (std::slice::from_raw_parts(u.add(base), 3 * g.sz), std::slice::from_raw_parts_mut(r.add(p0), nx)) };
+    // `row_apply` indexes `u` from the start of plane kp - 1; the coefficients are indexed
+    // absolutely, so shift them by the same offset.
+    let shifted = OpView {
+        g,
+        tx: &op.tx[base..],
+        ty: &op.ty[base..],
+        tz: &op.tz[base..],
+        c: &op.c[base..],
+        inv_d: &op.inv_d[base..],
+    };
+    let p0 = p0 - base;
+    row_apply(&shifted, uu, p0, out);
+    let fr = &f[base + p0..base + p0 + nx];
+    let first = (colour + (jp - 1) + (kp - 1)) % 2;
+    for i in 0..nx {
+        out[i] = if i % 2 == first { fr[i] - out[i] } else { 0.0 };
+    }
+}
+
+/// One red-black Gauss-Seidel sweep: colour `c1` then `1 - c1`, where the colour of interior cell
+/// `(i, j, k)` is `(i + j + k) % 2`. With `from_zero`, `u` is taken as zero before the sweep (its
+/// content is ignored). With `r`, the residual `f - A u` after the sweep is written there (zero
+/// at the cells of the second colour).
+///
+/// Threads own slabs of planes `[s0, s1)`; per slab, with `last = s1 - 1`:
+/// - phase A: colour 1 on planes `s0` and `last`, reading only cells of colour 2;
+/// - phase B: for each plane `k`: colour 1 on plane `k + 1` when it is inside the slab, colour 2
+///   on plane `k` (reading only colour-1 cells on `s0` and `last`, whose neighbour planes belong
+///   to other slabs), the residual of plane `k - 1` when it is inside the slab;
+/// - phase C: the residual of planes `s0` and `last` (nobody writes `u` any more).
+pub fn sweep(op: &OpView<'_>, u: &mut [f64], f: &[f64], c1: usize, from_zero: bool, r: Option<&mut [f64]>) {
+    op.check();
+    let g = op.g;
+    assert!(u.len() == g.len && f.len() == g.len);
+    let want_r = r.is_some();
+    let rptr = match r {
+        Some(r) => {
+            assert_eq!(r.len(), g.len);
+            r.as_mut_ptr()
+        }
+        None => std::ptr::null_mut(),
+    };
+    let sh = Shared { u: u.as_mut_ptr(), r: rptr };
+    let c2 = 1 - c1;
+    let nz = g.n[2];
+    let ny = g.n[1];
+    let slabs = if g.parallel() { rayon::current_num_threads().clamp(1, nz.div_ceil(4)) } else { 1 };
+    let bounds = move |s: usize| (1 + s * nz / slabs, 1 + (s + 1) * nz / slabs);
+    let first_read = if from_zero { Read::Zero } else { Read::OtherColour };
+    let interior_read = if from_zero { Read::Zero } else { Read::Rows };
+    let colour_plane = move |kp: usize, colour: usize, read: Read| {
+        let sh = sh;
+        for jp in 1..=ny {
+            // SAFETY: the phase structure above gives the contract of `row_colour`.
+            unsafe { row_colour(op, sh.u, f, kp, jp, colour, read) };
+        }
+    };
+    let residual_plane = move |kp: usize| {
+        let sh = sh;
+        for jp in 1..=ny {
+            // SAFETY: planes kp - 1..=kp + 1 of u are final and owned (phase B) or read-only
+            // (phase C); the row of r belongs to the slab of kp.
+            unsafe { row_residual(op, sh.u, f, sh.r, kp, jp, c1) };
+        }
+    };
+    let run = |task: &(dyn Fn(usize) + Sync)| {
+        if slabs > 1 {
+            (0..slabs).into_par_iter().for_each(task);
+        } else {
+            task(0);
+        }
+    };
+    // Phase A.
+    run(&|s| {
+        let (s0, s1) = bounds(s);
+        colour_plane(s0, c1, first_read);
+        if s1 - 1 > s0 {
+            colour_plane(s1 - 1, c1, first_read);
+        }
+    });
+    // Phase B.
+    run(&|s| {
+        let (s0, s1) = bounds(s);
+        let last = s1 - 1;
+        for k in s0..=last {
+            if k + 1 < last {
+                colour_plane(k + 1, c1, interior_read);
+            }
+            let read = if k == s0 || k == last { Read::OtherColour } else { Read::Rows };
+            colour_plane(k, c2, read);
+            if want_r && k - 1 > s0 && k - 1 < last {
+                residual_plane(k - 1);
+            }
+        }
+    });
+    // Phase C.
+    if want_r {
+        run(&|s| {
+            let (s0, s1) = bounds(s);
+            residual_plane(s0);
+            if s1 - 1 > s0 {
+                residual_plane(s1 - 1);
+            }
+        });
+    }
+}
+
+/// Pre-smoothing from `u = 0`: `sweeps` sweeps colour 0 then 1; the residual after the last one
+/// goes to `r`.
+pub fn pre_smooth(op: &OpView<'_>, u: &mut [f64], f: &[f64], sweeps: usize, r: &mut [f64]) {
+    assert!(sweeps >= 1);
+    for s in 0..sweeps {
+        let last = s + 1 == sweeps;
+        sweep(op, u, f, 0, s == 0, if last { Some(&mut *r) } else { None });
+    }
+}
+
+/// Post-smoothing, the adjoint of [`pre_smooth`]: `sweeps` sweeps colour 1 then 0.
+pub fn post_smooth(op: &OpView<'_>, u: &mut [f64], f: &[f64], sweeps: usize) {
+    for _ in 0..sweeps {
+        sweep(op, u, f, 1, false, None);
+    }
+}
+
+/// Two-pass reference sweep (colour `c1` on every plane, then `1 - c1`), for tests.
+#[cfg(test)]
+pub fn sweep_two_pass(op: &OpView<'_>, u: &mut [f64], f: &[f64], c1: usize) {
+    let g = op.g;
+    let p = u.as_mut_ptr();
+    for colour in [c1, 1 - c1] {
+        for kp in 1..=g.n[2] {
+            for jp in 1..=g.n[1] {
+                // SAFETY: single thread.
+                unsafe { row_colour(op, p, f, kp, jp, colour, Read::OtherColour) };
+            }
+        }
+    }
+}

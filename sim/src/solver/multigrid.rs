@@ -1,0 +1,547 @@
+//! Geometric multigrid V-cycle for cell-centred 7-point operators (Trottenberg, Oosterlee and
+//! Schuller 2001, Multigrid, Academic Press: sec. 2.8 cell-centred grids, ch. 7 variable
+//! coefficients).
+//!
+//! - Coarsening: each axis of more than one cell halves, `n_c = ceil(n / 2)` (an odd axis leaves
+//!   one coarse cell of a single fine cell), until at most [`COARSEST_MAX`] cells remain; the
+//!   coarsest level is solved exactly by a dense Cholesky factorisation.
+//! - Coarse operators are re-discretised, not Galerkin products, so every level is a 7-point
+//!   operator of the same kind: a coarse face conducts like the fine "tubes" crossing it, each a
+//!   series of the half of the interior fine face inside the left coarse cell, the fine face on
+//!   the coarse face, and the half of the interior fine face inside the right coarse cell (exact
+//!   for a uniform coefficient, and harmonic-mean-like across jumps); tubes add in parallel, and
+//!   the coarse diagonal term is the sum of its children's.
+//! - Transfers: trilinear prolongation between cell centres (weights from the centre positions;
+//!   constant beyond the boundary), and restriction its exact transpose, so that the V-cycle with
+//!   red-black Gauss-Seidel pre-smoothing and the reversed colour order in post-smoothing is a
+//!   symmetric positive definite preconditioner for conjugate gradients (Tatebe 1993, Copper
+//!   Mountain Conference on Multigrid Methods, "The multigrid preconditioned conjugate gradient
+//!   method").
+//!
+//! All storage is allocated when the hierarchy is built; [`Multigrid::update`] refreshes the
+//! coefficients in place and a V-cycle allocates nothing.
+
+use rayon::prelude::*;
+
+use super::SolveError;
+use super::grid::{Grid, zeros};
+use super::kernels::{self, OpView};
+use super::stencil::Stencil7;
+
+/// Most cells of the coarsest level (solved densely).
+pub const COARSEST_MAX: usize = 256;
+
+/// Linear interpolation along one axis from coarse to fine cell centres.
+#[derive(Debug, Clone)]
+struct AxisTransfer {
+    /// Per fine cell: parent, neighbour, weight of the neighbour (the parent gets `1 - w`).
+    fine: Vec<(usize, usize, f64)>,
+    /// Per coarse cell: the fine cells that interpolate from it, with their weights.
+    coarse: Vec<Vec<(usize, f64)>>,
+}
+
+impl AxisTransfer {
+    fn new(nf: usize, nc: usize) -> Self {
+        // Centres in units of the fine spacing: fine i at i + 1/2; a coarse cell at the mean of
+        // its children's centres.
+        let children = |c: usize| if 2 * c + 1 < nf { 2 } else { 1 };
+        let centre = |c: usize| if children(c) == 2 { 2.0 * c as f64 + 1.0 } else { 2.0 * c as f64 + 0.5 };
+        let mut fine = Vec::with_capacity(nf);
+        for i in 0..nf {
+            let parent = i / 2;
+            let x = i as f64 + 0.5;
+            let xc = centre(parent);
+            let nb = if x < xc && parent > 0 {
+                Some(parent - 1)
+            } else if x > xc && parent + 1 < nc {
+                Some(parent + 1)
+            } else {
+                None
+            };
+            match nb {
+                Some(q) => {
+                    let w = (x - xc).abs() / (centre(q) - xc).abs();
+                    fine.push((parent, q, w));
+                }
+                None => fine.push((parent, parent, 0.0)),
+            }
+        }
+        let mut coarse = vec![Vec::new(); nc];
+        for (i, &(a, b, w)) in fine.iter().enumerate() {
+            coarse[a].push((i, 1.0 - w));
+            if w > 0.0 {
+                coarse[b].push((i, w));
+            }
+        }
+        AxisTransfer { fine, coarse }
+    }
+}
+
+/// One coarse level: its operator, vectors and the transfer from the level above.
+#[derive(Debug, Clone)]
+struct Level {
+    g: Grid,
+    t: [Vec<f64>; 3],
+    c: Vec<f64>,
+    inv_d: Vec<f64>,
+    u: Vec<f64>,
+    f: Vec<f64>,
+    r: Vec<f64>,
+    /// Transfer between this level and the finer one above it.
+    transfer: [AxisTransfer; 3],
+    /// Row buffers: one fine row per coarse plane (restriction), one coarse row per fine plane
+    /// (prolongation).
+    rbuf: Vec<f64>,
+    pbuf: Vec<f64>,
+}
+
+impl Level {
+    fn view(&self) -> OpView<'_> {
+        OpView { g: self.g, tx: &self.t[0], ty: &self.t[1], tz: &self.t[2], c: &self.c, inv_d: &self.inv_d }
+    }
+}
+
+/// Dense Cholesky factor of the coarsest level.
+#[derive(Debug, Clone)]
+struct Dense {
+    m: usize,
+    /// Padded index of each unknown.
+    map: Vec<usize>,
+    /// Row-major lower factor.
+    l: Vec<f64>,
+    y: Vec<f64>,
+}
+
+impl Dense {
+    fn new(g: &Grid) -> Self {
+        let m = g.cells();
+        let mut map = Vec::with_capacity(m);
+        for k in 0..g.n[2] {
+            for j in 0..g.n[1] {
+                for i in 0..g.n[0] {
+                    map.push(g.pad(i, j, k));
+                }
+            }
+        }
+        Dense { m, map, l: vec![0.0; m * m], y: vec![0.0; m] }
+    }
+
+    fn factor(&mut self, op: &OpView<'_>) -> Result<(), SolveError> {
+        let m = self.m;
+        let g = op.g;
+        let l = &mut self.l;
+        l.iter_mut().for_each(|v| *v = 0.0);
+        for (row, &p) in self.map.iter().enumerate() {
+            l[row * m + row] =
+                op.c[p] + op.tx[p] + op.tx[p + 1] + op.ty[p] + op.ty[p + g.sy] + op.tz[p] + op.tz[p + g.sz];
+            let [i, j, k] = [row % g.n[0], (row / g.n[0]) % g.n[1], row / (g.n[0] * g.n[1])];
+            // Lower neighbours only (the factor is lower triangular).
+            if i > 0 {
+                l[row * m + row - 1] = -op.tx[p];
+            }
+            if j > 0 {
+                l[row * m + row - g.n[0]] = -op.ty[p];
+            }
+            if k > 0 {
+                l[row * m + row - g.n[0] * g.n[1]] = -op.tz[p];
+            }
+        }
+        for j in 0..m {
+            let ajj = l[j * m + j];
+            let mut s = ajj;
+            for q in 0..j {
+                s -= l[j * m + q] * l[j * m + q];
+            }
+            if !(s > 1e-12 * ajj) || !s.is_finite() {
+                return Err(SolveError::Singular {
+                    what: "the operator has no diagonal term and no conducting boundary face (or a \
+                           disconnected part without either)"
+                        .into(),
+                });
+            }
+            let djj = s.sqrt();
+            l[j * m + j] = djj;
+            for i in j + 1..m {
+                let mut s = l[i * m + j];
+                for q in 0..j {
+                    s -= l[i * m + q] * l[j * m + q];
+                }
+                l[i * m + j] = s / djj;
+            }
+        }
+        Ok(())
+    }
+
+    fn solve(&mut self, f: &[f64], u: &mut [f64]) {
+        let m = self.m;
+        let l = &self.l;
+        let y = &mut self.y;
+        for i in 0..m {
+            let mut s = f[self.map[i]];
+            for q in 0..i {
+                s -= l[i * m + q] * y[q];
+            }
+            y[i] = s / l[i * m + i];
+        }
+        for i in (0..m).rev() {
+            let mut s = y[i];
+            for q in i + 1..m {
+                s -= l[q * m + i] * y[q];
+            }
+            y[i] = s / l[i * m + i];
+        }
+        for i in 0..m {
+            u[self.map[i]] = y[i];
+        }
+    }
+}
+
+/// The multigrid hierarchy below a fine operator.
+#[derive(Debug, Clone)]
+pub struct Multigrid {
+    fine: Grid,
+    /// Fine residual.
+    r0: Vec<f64>,
+    levels: Vec<Level>,
+    dense: Dense,
+    /// Red-black sweeps before and after the coarse correction.
+    pub sweeps: usize,
+}
+
+/// Cells of the next coarser level.
+fn coarse_dims(n: [usize; 3]) -> [usize; 3] {
+    n.map(|v| v.div_ceil(2))
+}
+
+impl Multigrid {
+    /// Allocates the hierarchy of `op` and computes its coefficients; `inv_d0` is the inverse
+    /// diagonal of `op` ([`Stencil7::inverse_diagonal_into`]).
+    pub fn new(op: &Stencil7, inv_d0: &[f64], sweeps: usize) -> Result<Self, SolveError> {
+        let fine = op.g;
+        let mut levels: Vec<Level> = Vec::new();
+        let mut n = fine.n;
+        let mut above = fine;
+        while n.iter().product::<usize>() > COARSEST_MAX && n.iter().any(|&v| v > 1) {
+            let nc = coarse_dims(n);
+            let g = Grid::new(nc);
+            let transfer = [0, 1, 2].map(|a| AxisTransfer::new(n[a], nc[a]));
+            levels.push(Level {
+                g,
+                t: [zeros(&g), zeros(&g), zeros(&g)],
+                c: zeros(&g),
+                inv_d: zeros(&g),
+                u: zeros(&g),
+                f: zeros(&g),
+                r: zeros(&g),
+                transfer,
+                rbuf: vec![0.0; (nc[2] + 2) * above.n[0]],
+                pbuf: vec![0.0; (above.n[2] + 2) * nc[0]],
+            });
+            n = nc;
+            above = g;
+        }
+        let dense = Dense::new(&Grid::new(n));
+        let mut mg = Multigrid { fine, r0: zeros(&fine), levels, dense, sweeps };
+        mg.update(op, inv_d0)?;
+        Ok(mg)
+    }
+
+    /// Cells per level, finest first.
+    pub fn dims(&self) -> Vec<[usize; 3]> {
+        std::iter::once(self.fine.n).chain(self.levels.iter().map(|l| l.g.n)).collect()
+    }
+
+    /// Bytes held by the hierarchy (vectors and coarse operators).
+    pub fn memory_bytes(&self) -> usize {
+        let mut b = 8 * self.r0.len();
+        for l in &self.levels {
+            b += 8 * (l.t.iter().map(Vec::len).sum::<usize>() + l.c.len() + l.inv_d.len() + l.u.len() + l.f.len());
+            b += 8 * (l.r.len() + l.rbuf.len() + l.pbuf.len());
+            for t in &l.transfer {
+                b += 24 * t.fine.len() + t.coarse.iter().map(|c| 24 + 16 * c.len()).sum::<usize>();
+            }
+        }
+        b + 8 * (self.dense.l.len() + self.dense.y.len() + self.dense.map.len())
+    }
+
+    /// Recomputes every level from the fine operator (same dimensions) and its inverse diagonal
+    /// `inv_d0`, in place.
+    pub fn update(&mut self, op: &Stencil7, inv_d0: &[f64]) -> Result<(), SolveError> {
+        if op.g != self.fine {
+            return Err(SolveError::Shape { expected: self.fine.n, found: op.g.n });
+        }
+        for l in 0..self.levels.len() {
+            let (above, below) = self.levels.split_at_mut(l);
+            let (g_f, t_f, c_f) = match above.last() {
+                Some(a) => (a.g, &a.t, &a.c),
+                None => (op.g, &op.t, &op.c),
+            };
+            let lev = &mut below[0];
+            coarsen(&g_f, t_f, c_f, lev);
+            inverse_diagonal(&lev.g, &lev.t, &lev.c, &mut lev.inv_d)?;
+        }
+        match self.levels.last() {
+            Some(l) => self.dense.factor(&l.view()),
+            None => self.dense.factor(&op.view(inv_d0)),
+        }
+    }
+
+    /// One V-cycle for `A u = f` from `u = 0` on the fine level: writes `u` (padded; ghosts stay
+    /// zero).
+    pub fn vcycle(&mut self, op: &Stencil7, inv_d0: &[f64], f: &[f64], u: &mut [f64]) {
+        let nu = self.sweeps;
+        let fine = op.view(inv_d0);
+        if self.levels.is_empty() {
+            self.dense.solve(f, u);
+            return;
+        }
+        kernels::pre_smooth(&fine, u, f, nu, &mut self.r0);
+        let nl = self.levels.len();
+        restrict(&self.fine, &self.r0, &mut self.levels[0]);
+        for l in 0..nl - 1 {
+            let (a, b) = self.levels.split_at_mut(l + 1);
+            let lev = &mut a[l];
+            let view = OpView { g: lev.g, tx: &lev.t[0], ty: &lev.t[1], tz: &lev.t[2], c: &lev.c, inv_d: &lev.inv_d };
+            kernels::pre_smooth(&view, &mut lev.u, &lev.f, nu, &mut lev.r);
+            restrict(&lev.g, &lev.r, &mut b[0]);
+        }
+        {
+            let last = &mut self.levels[nl - 1];
+            self.dense.solve(&last.f, &mut last.u);
+        }
+        for l in (0..nl - 1).rev() {
+            let (a, b) = self.levels.split_at_mut(l + 1);
+            let lev = &mut a[l];
+            prolong_add(&mut b[0], &lev.g, &mut lev.u);
+            let view = OpView { g: lev.g, tx: &lev.t[0], ty: &lev.t[1], tz: &lev.t[2], c: &lev.c, inv_d: &lev.inv_d };
+            kernels::post_smooth(&view, &mut lev.u, &lev.f, nu);
+        }
+        prolong_add(&mut self.levels[0], &self.fine, u);
+        kernels::post_smooth(&fine, u, f, nu);
+    }
+}
+
+/// `inv_d = 1 / (c + sum of the six faces)` on the interior; fails where that sum is not
+/// positive and finite (a cell that nothing ties down).
+pub fn inverse_diagonal(g: &Grid, t: &[Vec<f64>; 3], c: &[f64], inv_d: &mut [f64]) -> Result<(), SolveError> {
+    let g = *g;
+    g.planes(inv_d, |k, pl| {
+        for j in 1..=g.n[1] {
+            for i in 1..=g.n[0] {
+                let p = g.sz * k + g.sy * j + i;
+                let d = c[p] + t[0][p] + t[0][p + 1] + t[1][p] + t[1][p + g.sy] + t[2][p] + t[2][p + g.sz];
+                pl[p - g.sz * k] = if d > 0.0 && d.is_finite() { 1.0 / d } else { f64::NAN };
+            }
+        }
+    });
+    check_diagonal(&g, inv_d)
+}
+
+fn check_diagonal(g: &Grid, d: &[f64]) -> Result<(), SolveError> {
+    for k in 1..=g.n[2] {
+        for j in 1..=g.n[1] {
+            let p0 = g.sz * k + g.sy * j + 1;
+            if let Some(i) = d[p0..p0 + g.n[0]].iter().position(|&v| !v.is_finite()) {
+                return Err(SolveError::Singular {
+                    what: format!(
+                        "cell ({i}, {}, {}) of a {:?} level has no diagonal term and no conducting face \
+                         (or a coefficient that is not finite)",
+                        j - 1,
+                        k - 1,
+                        g.n
+                    ),
+                });
+            }
+        }
+    }
+    Ok(())
+}
+
+/// Children of coarse cell `c` along an axis of `nf` fine cells: (first, count).
+#[inline]
+fn children(c: usize, nf: usize) -> (usize, usize) {
+    (2 * c, if 2 * c + 1 < nf { 2 } else { 1 })
+}
+
+/// Re-discretised coarse faces and diagonal from the fine level (see the module notes).
+fn coarsen(gf: &Grid, tf: &[Vec<f64>; 3], cf: &[f64], lev: &mut Level) {
+    let gc = lev.g;
+    let nf = gf.n;
+    let nc = gc.n;
+    // Diagonal terms: sum of children.
+    {
+        let c = &mut lev.c;
+        gc.planes(c, |kc, pl| {
+            let (k0, kn) = children(kc - 1, nf[2]);
+            for jc in 0..nc[1] {
+                let (j0, jn) = children(jc, nf[1]);
+                for ic in 0..nc[0] {
+                    let (i0, inn) = children(ic, nf[0]);
+                    let mut s = 0.0;
+                    for k in k0..k0 + kn {
+                        for j in j0..j0 + jn {
+                            for i in i0..i0 + inn {
+                                s += cf[gf.pad(i, j, k)];
+                            }
+                        }
+                    }
+                    pl[gc.pad(ic, jc, kc - 1) - gc.sz * kc] = s;
+                }
+            }
+        });
+    }
+    for axis in 0..3 {
+        let tfa = &tf[axis];
+        let (u1, u2) = match axis {
+            0 => (1, 2),
+            1 => (0, 2),
+            _ => (0, 1),
+        };
+        let t = &mut lev.t[axis];
+        let fine_face = |f: [usize; 3]| tfa[gf.pad(f[0], f[1], f[2])];
+        // Coarse faces: coordinate along `axis` in 0..=nc[axis], the others interior. Planes of
+        // the padded array run over z; a face plane along z may be the ghost plane nc[2] + 1.
+        let kmax = if axis == 2 { nc[2] + 1 } else { nc[2] };
+        let body = |kc: usize, pl: &mut [f64]| {
+            if kc == 0 || kc > kmax {
+                return;
+            }
+            for jc in 0..nc[1] + usize::from(axis == 1) {
+                for ic in 0..nc[0] + usize::from(axis == 0) {
+                    let cc = [ic, jc, kc - 1];
+                    let a = cc[axis];
+                    if cc[u1] >= nc[u1] || cc[u2] >= nc[u2] {
+                        continue;
+                    }
+                    let (b0, bn) = children(cc[u1], nf[u1]);
+                    let (e0, en) = children(cc[u2], nf[u2]);
+                    // Fine face on the coarse face.
+                    let mid = (2 * a).min(nf[axis]);
+                    let left_two = a > 0 && children(a - 1, nf[axis]).1 == 2;
+                    let right_two = a < nc[axis] && children(a, nf[axis]).1 == 2;
+                    let mut total = 0.0;
+                    for e in e0..e0 + en {
+                        for b in b0..b0 + bn {
+                            let mut f = [0; 3];
+                            f[u1] = b;
+                            f[u2] = e;
+                            f[axis] = mid;
+                            let tm = fine_face(f);
+                            if tm <= 0.0 {
+                                continue;
+                            }
+                            let mut res = 1.0 / tm;
+                            if left_two {
+                                f[axis] = mid - 1;
+                                let tl = fine_face(f);
+                                if tl <= 0.0 {
+                                    continue;
+                                }
+                                res += 0.5 / tl;
+                            }
+                            if right_two {
+                                f[axis] = mid + 1;
+                                let tr = fine_face(f);
+                                if tr <= 0.0 {
+                                    continue;
+                                }
+                                res += 0.5 / tr;
+                            }
+                            total += 1.0 / res;
+                        }
+                    }
+                    let p = gc.pad(cc[0], cc[1], cc[2]);
+                    pl[p - gc.sz * kc] = total;
+                }
+            }
+        };
+        if gc.parallel() {
+            t.par_chunks_mut(gc.sz).enumerate().for_each(|(kc, pl)| body(kc, pl));
+        } else {
+            t.chunks_mut(gc.sz).enumerate().for_each(|(kc, pl)| body(kc, pl));
+        }
+    }
+}
+
+/// `lev.f = R r` with `R` the transpose of the trilinear prolongation.
+fn restrict(gf: &Grid, r: &[f64], lev: &mut Level) {
+    let gc = lev.g;
+    let nxf = gf.n[0];
+    let [tx, ty, tz] = &lev.transfer;
+    let body = |kc: usize, (pl, buf): (&mut [f64], &mut [f64])| {
+        if kc == 0 || kc > gc.n[2] {
+            return;
+        }
+        for jc in 0..gc.n[1] {
+            buf.iter_mut().for_each(|v| *v = 0.0);
+            for &(k, wk) in &tz.coarse[kc - 1] {
+                for &(j, wj) in &ty.coarse[jc] {
+                    let w = wj * wk;
+                    let p0 = gf.pad(0, j, k);
+                    let row = &r[p0..p0 + nxf];
+                    for (b, &v) in buf.iter_mut().zip(row) {
+                        *b += w * v;
+                    }
+                }
+            }
+            let o = gc.pad(0, jc, kc - 1) - gc.sz * kc;
+            for (ic, list) in tx.coarse.iter().enumerate() {
+                let mut s = 0.0;
+                for &(i, wi) in list {
+                    s += wi * buf[i];
+                }
+                pl[o + ic] = s;
+            }
+        }
+    };
+    let f = &mut lev.f;
+    let rbuf = &mut lev.rbuf;
+    if gc.parallel() {
+        f.par_chunks_mut(gc.sz).zip(rbuf.par_chunks_mut(nxf)).enumerate().for_each(|(k, x)| body(k, x));
+    } else {
+        f.chunks_mut(gc.sz).zip(rbuf.chunks_mut(nxf)).enumerate().for_each(|(k, x)| body(k, x));
+    }
+}
+
+/// `u += P lev.u`: trilinear interpolation of the coarse correction to the fine level `gf`.
+fn prolong_add(lev: &mut Level, gf: &Grid, u: &mut [f64]) {
+    let gc = lev.g;
+    let ncx = gc.n[0];
+    let [tx, ty, tz] = &lev.transfer;
+    let uc = &lev.u;
+    let body = |k: usize, (pl, buf): (&mut [f64], &mut [f64])| {
+        if k == 0 || k > gf.n[2] {
+            return;
+        }
+        let (k0, k1, wk) = tz.fine[k - 1];
+        for j in 0..gf.n[1] {
+            let (j0, j1, wj) = ty.fine[j];
+            let rows = [
+                (j0, k0, (1.0 - wj) * (1.0 - wk)),
+                (j1, k0, wj * (1.0 - wk)),
+                (j0, k1, (1.0 - wj) * wk),
+                (j1, k1, wj * wk),
+            ];
+            buf.iter_mut().for_each(|v| *v = 0.0);
+            for (jc, kc, w) in rows {
+                if w == 0.0 {
+                    continue;
+                }
+                let p0 = gc.pad(0, jc, kc);
+                for (b, &v) in buf.iter_mut().zip(&uc[p0..p0 + ncx]) {
+                    *b += w * v;
+                }
+            }
+            let o = gf.pad(0, j, k - 1) - gf.sz * k;
+            for (i, &(i0, i1, wi)) in tx.fine.iter().enumerate() {
+                pl[o + i] += (1.0 - wi) * buf[i0] + wi * buf[i1];
+            }
+        }
+    };
+    let pbuf = &mut lev.pbuf;
+    if gf.parallel() {
+        u.par_chunks_mut(gf.sz).zip(pbuf.par_chunks_mut(ncx)).enumerate().for_each(|(k, x)| body(k, x));
+    } else {
+        u.chunks_mut(gf.sz).zip(pbuf.chunks_mut(ncx)).enumerate().for_each(|(k, x)| body(k, x));
+    }
+}
