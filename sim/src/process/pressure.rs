@@ -197,16 +197,38 @@ pub struct FluidSystem {
     pub rhs: Vec<f64>,
 }
 
+/// What one boundary face of the box does to the pressure.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum PressureWall {
+    /// This pressure on the face, Pa.
+    Fixed(f64),
+    /// No flow through the face.
+    ZeroFlux,
+    /// The tissue of the boundary voxel continues outside and relaxes to its own equilibrium
+    /// pressure (a Robin condition; zero flux where the voxel exchanges no fluid).
+    HostEquilibrium,
+}
+
+impl PressureWall {
+    /// The wall of every face for a scenario's `[fluid]` section.
+    pub fn from_params(fp: &FluidParams) -> Self {
+        match fp.boundary {
+            FluidBoundary::Fixed => PressureWall::Fixed(fp.boundary_pressure),
+            FluidBoundary::ZeroFlux => PressureWall::ZeroFlux,
+            FluidBoundary::HostEquilibrium => PressureWall::HostEquilibrium,
+        }
+    }
+}
+
 /// Assembles `-div(K grad p) + (lp_s + LpL SL) p = drive + LpL SL p_L` on the lattice: voxel
-/// equations in m^3/s, face transmissibilities `K h` (harmonic mean of the two voxels),
-/// boundary faces by `boundary` (`pressure` is the fixed value, Pa).
+/// equations in m^3/s, face transmissibilities `K h` (harmonic mean of the two voxels), each
+/// boundary face of each boundary voxel by `boundary(face, voxel)`.
 pub fn assemble(
     l: &Lattice,
     conductivity: &[f64],
     wall: &WallFluid,
     lymph: &Lymphatics,
-    boundary: FluidBoundary,
-    pressure: f64,
+    boundary: impl Fn(Face, [usize; 3]) -> PressureWall,
 ) -> FluidSystem {
     let n = l.len();
     let vol = l.voxel_volume();
@@ -217,11 +239,11 @@ pub fn assemble(
         c[v] = wall.lp_s.data[v] + ll;
         rhs[v] = wall.drive.data[v] + ll * lymph.pressure;
     }
-    let walls = |_: Face, ijk: [usize; 3]| -> Wall {
-        match boundary {
-            FluidBoundary::Fixed => Wall::Fixed(pressure),
-            FluidBoundary::ZeroFlux => Wall::ZeroFlux,
-            FluidBoundary::HostEquilibrium => {
+    let walls = |face: Face, ijk: [usize; 3]| -> Wall {
+        match boundary(face, ijk) {
+            PressureWall::Fixed(p) => Wall::Fixed(p),
+            PressureWall::ZeroFlux => Wall::ZeroFlux,
+            PressureWall::HostEquilibrium => {
                 let v = l.idx(ijk[0], ijk[1], ijk[2]);
                 if c[v] > 0.0 && conductivity[v] > 0.0 {
                     let a = c[v] / vol;
@@ -500,14 +522,8 @@ pub fn solve_now(world: &mut World) -> SimResult<()> {
                 ),
             });
         }
-        let sys = assemble(
-            l,
-            &k.data,
-            world.resource::<WallFluid>(),
-            world.resource::<Lymphatics>(),
-            fp.boundary,
-            fp.boundary_pressure,
-        );
+        let wall = PressureWall::from_params(&fp);
+        let sys = assemble(l, &k.data, world.resource::<WallFluid>(), world.resource::<Lymphatics>(), |_, _| wall);
         (sys, k)
     };
     let what = "interstitial pressure solve";
