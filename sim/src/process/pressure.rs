@@ -561,7 +561,6 @@ pub fn solve_now(world: &mut World) -> SimResult<()> {
         sys.stencil.face_flux(&sys.boundary, p, 0, &mut flux.x);
         sys.stencil.face_flux(&sys.boundary, p, 1, &mut flux.y);
         sys.stencil.face_flux(&sys.boundary, p, 2, &mut flux.z);
-        drop(flux);
         let flux = world.resource::<DarcyFlux>();
         let porosity = &world.resource::<Matrix>().porosity.data;
         let area = l.h * l.h;

@@ -152,7 +152,7 @@ impl Dense {
             for q in 0..j {
                 s -= l[j * m + q] * l[j * m + q];
             }
-            if !(s > 1e-12 * ajj) || !s.is_finite() {
+            if s.is_nan() || s <= 1e-12 * ajj || !s.is_finite() {
                 return Err(SolveError::Singular {
                     what: "the operator has no diagonal term and no conducting boundary face (or a \
                            disconnected part without either)"

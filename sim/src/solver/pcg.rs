@@ -124,7 +124,7 @@ impl Solver {
             // z = M r
             self.mg.vcycle(op, inv_d0, &self.r, &mut self.z);
             let rz_new = self.dot(DotPair::RZ);
-            if !(rz_new > 0.0) {
+            if rz_new.is_nan() || rz_new <= 0.0 {
                 return Err(SolveError::NotFinite {
                     what: format!(
                         "the preconditioned residual (r.z = {rz_new:e}): the operator is not positive definite"
@@ -147,7 +147,7 @@ impl Solver {
             }
             rz = rz_new;
             let pq = kernels::apply_dot(&a, &self.p, &mut self.q, &mut self.partials);
-            if !(pq > 0.0) {
+            if pq.is_nan() || pq <= 0.0 {
                 return Err(SolveError::NotFinite {
                     what: format!("the search direction (p.Ap = {pq:e}): the operator is not positive definite"),
                 });

@@ -165,8 +165,8 @@ fn heterogeneous(n: [usize; 3], seed: u64) -> (Lattice, Vec<f64>, WallFluid, Lym
     let (mut kf, mut wall, mut lymph) = uniform(&l, lps_v, k, pe);
     let mut s = crate::rng::stream(seed, crate::rng::Domain::Sweep, 7, 0);
     let vol = l.voxel_volume();
-    for v in 0..l.len() {
-        kf[v] = k * 10f64.powf(s.uniform() - 0.5);
+    for (v, kv) in kf.iter_mut().enumerate() {
+        *kv = k * 10f64.powf(s.uniform() - 0.5);
         let ls = lps_v * vol * 2.0 * s.uniform();
         wall.lp_s.data[v] = ls;
         wall.drive.data[v] = ls * pe * (0.5 + s.uniform());
@@ -207,9 +207,9 @@ fn fluid_balance_closes_to_the_solver_tolerance() {
     sys.stencil.face_flux(&sys.boundary, &p, 1, &mut flux.y);
     sys.stencil.face_flux(&sys.boundary, &p, 2, &mut flux.z);
     let rnorm = rep.relative_residual * fnorm;
-    for v in 0..l.len() {
+    for (v, &pv) in p.iter().enumerate() {
         let ijk = l.ijk(v);
-        let local = wall.leakage(v, p[v]) - lymph.drainage.data[v] * l.voxel_volume() * (p[v] - lymph.pressure);
+        let local = wall.leakage(v, pv) - lymph.drainage.data[v] * l.voxel_volume() * (pv - lymph.pressure);
         let out = flux.net_outflow(ijk);
         assert!((out - local).abs() <= rnorm + 1e-12 * local.abs().max(out.abs()), "voxel {ijk:?}: {out} vs {local}");
     }
@@ -236,10 +236,10 @@ fn a_symmetric_scenario_gives_a_symmetric_field() {
     let bound = 2.0 * f.report.relative_residual * fnorm / cmin;
     let n = 30;
     let mut worst = 0.0f64;
-    for v in 0..l.len() {
+    for (v, &pv) in p.iter().enumerate() {
         let [i, j, k] = l.ijk(v);
         for w in [[n - 1 - i, j, k], [i, n - 1 - j, k], [i, j, n - 1 - k], [j, i, k], [k, j, i], [i, k, j]] {
-            worst = worst.max((p[v] - p[l.idx(w[0], w[1], w[2])]).abs());
+            worst = worst.max((pv - p[l.idx(w[0], w[1], w[2])]).abs());
         }
     }
     assert!(worst <= bound, "largest asymmetry {worst:e} Pa, bound {bound:e} Pa");
