@@ -48,7 +48,8 @@ fn main() {
         let k = conductivity_field(&regions, &matrix, &p.matrix, &p.fluid);
         let sys = assemble(&l, &k.data, &wall, &lymph, |_, _| PressureWall::HostEquilibrium);
         drop((matrix, k));
-        let options = SolverOptions { tolerance: 1e-8, max_iterations: 500, sweeps: 2 };
+        let sweeps: usize = std::env::var("SWEEPS").ok().and_then(|v| v.parse().ok()).unwrap_or(2);
+        let options = SolverOptions { tolerance: 1e-8, max_iterations: 500, sweeps };
         let t0 = Instant::now();
         let mut solver = Solver::new(&sys.stencil, options).expect("solver");
         let setup = t0.elapsed().as_secs_f64();

@@ -31,49 +31,71 @@ use super::stencil::Stencil7;
 /// Most cells of the coarsest level (solved densely).
 pub const COARSEST_MAX: usize = 256;
 
+/// Interpolation of one fine cell along an axis: `wp` of its parent plus `wn` of a neighbour.
+#[derive(Debug, Clone, Copy)]
+struct FineRow {
+    parent: usize,
+    wp: f64,
+    /// The coarse neighbour (the parent itself, with `wn = 0`, when there is none).
+    nb: usize,
+    wn: f64,
+}
+
 /// Linear interpolation along one axis from coarse to fine cell centres.
 #[derive(Debug, Clone)]
 struct AxisTransfer {
-    /// Per fine cell: parent, neighbour, weight of the neighbour (the parent gets `1 - w`).
-    fine: Vec<(usize, usize, f64)>,
+    /// Per fine cell.
+    fine: Vec<FineRow>,
     /// Per coarse cell: the fine cells that interpolate from it, with their weights.
     coarse: Vec<Vec<(usize, f64)>>,
 }
 
 impl AxisTransfer {
     fn new(nf: usize, nc: usize) -> Self {
+        let mut t = AxisTransfer { fine: Vec::with_capacity(nf), coarse: vec![Vec::with_capacity(4); nc] };
+        t.set(nf, nc, [1.0, 1.0]);
+        t
+    }
+
+    /// Fills the tables (no allocation after the first call). `wall[side]` is the weight of the
+    /// parent for a fine cell between its parent's centre and the lower (`side` 0) or upper (1)
+    /// boundary, where no coarse neighbour exists: 1 extrapolates a constant (zero flux), 1/2
+    /// goes linearly to zero on the face (fixed value).
+    fn set(&mut self, nf: usize, nc: usize, wall: [f64; 2]) {
         // Centres in units of the fine spacing: fine i at i + 1/2; a coarse cell at the mean of
         // its children's centres.
         let children = |c: usize| if 2 * c + 1 < nf { 2 } else { 1 };
         let centre = |c: usize| if children(c) == 2 { 2.0 * c as f64 + 1.0 } else { 2.0 * c as f64 + 0.5 };
-        let mut fine = Vec::with_capacity(nf);
+        self.fine.clear();
         for i in 0..nf {
             let parent = i / 2;
             let x = i as f64 + 0.5;
             let xc = centre(parent);
-            let nb = if x < xc && parent > 0 {
-                Some(parent - 1)
+            let alone = |wp: f64| FineRow { parent, wp, nb: parent, wn: 0.0 };
+            let row = if x < xc && parent > 0 {
+                let w = (x - xc).abs() / (centre(parent - 1) - xc).abs();
+                FineRow { parent, wp: 1.0 - w, nb: parent - 1, wn: w }
             } else if x > xc && parent + 1 < nc {
-                Some(parent + 1)
+                let w = (x - xc).abs() / (centre(parent + 1) - xc).abs();
+                FineRow { parent, wp: 1.0 - w, nb: parent + 1, wn: w }
+            } else if x < xc {
+                alone(wall[0])
+            } else if x > xc {
+                alone(wall[1])
             } else {
-                None
+                alone(1.0)
             };
-            match nb {
-                Some(q) => {
-                    let w = (x - xc).abs() / (centre(q) - xc).abs();
-                    fine.push((parent, q, w));
-                }
-                None => fine.push((parent, parent, 0.0)),
+            self.fine.push(row);
+        }
+        for c in &mut self.coarse {
+            c.clear();
+        }
+        for (i, r) in self.fine.iter().enumerate() {
+            self.coarse[r.parent].push((i, r.wp));
+            if r.wn > 0.0 {
+                self.coarse[r.nb].push((i, r.wn));
             }
         }
-        let mut coarse = vec![Vec::new(); nc];
-        for (i, &(a, b, w)) in fine.iter().enumerate() {
-            coarse[a].push((i, 1.0 - w));
-            if w > 0.0 {
-                coarse[b].push((i, w));
-            }
-        }
-        AxisTransfer { fine, coarse }
     }
 }
 
@@ -258,7 +280,7 @@ impl Multigrid {
             b += 8 * (l.t.iter().map(Vec::len).sum::<usize>() + l.c.len() + l.inv_d.len() + l.u.len() + l.f.len());
             b += 8 * (l.r.len() + l.rbuf.len() + l.pbuf.len());
             for t in &l.transfer {
-                b += 24 * t.fine.len() + t.coarse.iter().map(|c| 24 + 16 * c.len()).sum::<usize>();
+                b += 32 * t.fine.len() + t.coarse.iter().map(|c| 24 + 16 * c.len()).sum::<usize>();
             }
         }
         b + 8 * (self.dense.l.len() + self.dense.y.len() + self.dense.map.len())
@@ -279,6 +301,10 @@ impl Multigrid {
             let lev = &mut below[0];
             coarsen(&g_f, t_f, c_f, lev);
             inverse_diagonal(&lev.g, &lev.t, &lev.c, &mut lev.inv_d)?;
+            for a in 0..3 {
+                let w = wall_weights(&lev.g, &lev.t[a], a);
+                lev.transfer[a].set(g_f.n[a], lev.g.n[a], w);
+            }
         }
         match self.levels.last() {
             Some(l) => self.dense.factor(&l.view()),
@@ -355,6 +381,50 @@ fn check_diagonal(g: &Grid, d: &[f64]) -> Result<(), SolveError> {
         }
     }
     Ok(())
+}
+
+/// Prolongation weights of the parent next to each boundary of `axis` (see
+/// [`AxisTransfer::set`]): linear extrapolation towards the value held beyond the face. For a
+/// boundary face of conductance `T_b` in series with material like the interior, the held value
+/// sits a distance `s` beyond the face with `s + h/2 = h T_in / T_b` (`T_in` the next interior
+/// face), so the fine cell a quarter coarse spacing from the face gets
+/// `(s + h/4) / (s + h/2) = 1 - T_b / (4 T_in)` of its parent: 1 for zero flux, 1/2 for a fixed
+/// value. Averaged over the face, within [1/2, 1].
+fn wall_weights(g: &Grid, t: &[f64], axis: usize) -> [f64; 2] {
+    let n = g.n;
+    if n[axis] < 2 {
+        return [1.0, 1.0];
+    }
+    let (u1, u2) = match axis {
+        0 => (1, 2),
+        1 => (0, 2),
+        _ => (0, 1),
+    };
+    let mut out = [1.0; 2];
+    for (side, o) in out.iter_mut().enumerate() {
+        // Faces: the boundary face and the first interior face from it.
+        let (inner, outer) = if side == 0 { (1, 0) } else { (n[axis] - 1, n[axis]) };
+        let (mut sum, mut count) = (0.0, 0usize);
+        for b in 0..n[u2] {
+            for a in 0..n[u1] {
+                let mut f = [0; 3];
+                f[u1] = a;
+                f[u2] = b;
+                f[axis] = outer;
+                let tb = t[g.pad(f[0], f[1], f[2])];
+                f[axis] = inner;
+                let ti = t[g.pad(f[0], f[1], f[2])];
+                if ti > 0.0 {
+                    sum += tb / ti;
+                    count += 1;
+                }
+            }
+        }
+        if count > 0 {
+            *o = (1.0 - 0.25 * sum / count as f64).clamp(0.5, 1.0);
+        }
+    }
+    out
 }
 
 /// Children of coarse cell `c` along an axis of `nf` fine cells: (first, count).
@@ -513,14 +583,14 @@ fn prolong_add(lev: &mut Level, gf: &Grid, u: &mut [f64]) {
         if k == 0 || k > gf.n[2] {
             return;
         }
-        let (k0, k1, wk) = tz.fine[k - 1];
+        let rz = tz.fine[k - 1];
         for j in 0..gf.n[1] {
-            let (j0, j1, wj) = ty.fine[j];
+            let ry = ty.fine[j];
             let rows = [
-                (j0, k0, (1.0 - wj) * (1.0 - wk)),
-                (j1, k0, wj * (1.0 - wk)),
-                (j0, k1, (1.0 - wj) * wk),
-                (j1, k1, wj * wk),
+                (ry.parent, rz.parent, ry.wp * rz.wp),
+                (ry.nb, rz.parent, ry.wn * rz.wp),
+                (ry.parent, rz.nb, ry.wp * rz.wn),
+                (ry.nb, rz.nb, ry.wn * rz.wn),
             ];
             buf.iter_mut().for_each(|v| *v = 0.0);
             for (jc, kc, w) in rows {
@@ -533,8 +603,8 @@ fn prolong_add(lev: &mut Level, gf: &Grid, u: &mut [f64]) {
                 }
             }
             let o = gf.pad(0, j, k - 1) - gf.sz * k;
-            for (i, &(i0, i1, wi)) in tx.fine.iter().enumerate() {
-                pl[o + i] += (1.0 - wi) * buf[i0] + wi * buf[i1];
+            for (i, r) in tx.fine.iter().enumerate() {
+                pl[o + i] += r.wp * buf[r.parent] + r.wn * buf[r.nb];
             }
         }
     };
