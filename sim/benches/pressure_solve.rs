@@ -25,7 +25,12 @@ fn status_kb(key: &str) -> Option<f64> {
 }
 
 fn main() {
-    for n in [64usize, 128, 192] {
+    // Sizes to run (all three by default); `PRESSURE_BENCH_SIZES=128` runs one.
+    let sizes: Vec<usize> = std::env::var("PRESSURE_BENCH_SIZES")
+        .ok()
+        .map(|s| s.split(',').filter_map(|v| v.trim().parse().ok()).collect())
+        .unwrap_or_else(|| vec![64, 128, 192]);
+    for n in sizes {
         // Start the peak count afresh (Linux: writing 5 to clear_refs resets VmHWM).
         let _ = std::fs::write("/proc/self/clear_refs", "5");
         let base = status_kb("VmRSS:").unwrap_or(0.0);

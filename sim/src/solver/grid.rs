@@ -56,9 +56,10 @@ impl Grid {
 
     /// Calls `f(k, plane)` for every interior padded plane `k` in `1..=n[2]`, with `plane` the
     /// slice of `out` that holds it.
-    pub fn planes<F>(&self, out: &mut [f64], f: F)
+    pub fn planes<T, F>(&self, out: &mut [T], f: F)
     where
-        F: Fn(usize, &mut [f64]) + Sync + Send,
+        T: Send,
+        F: Fn(usize, &mut [T]) + Sync + Send,
     {
         debug_assert_eq!(out.len(), self.len);
         let nz = self.n[2];

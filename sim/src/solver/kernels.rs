@@ -16,8 +16,8 @@ use rayon::prelude::*;
 
 use super::grid::Grid;
 
-/// A 7-point operator as the kernels see it: face transmissibilities per axis, the diagonal term
-/// `c` and the inverse of the matrix diagonal `1 / (c + sum of the faces)`, all padded.
+/// A 7-point operator as the conjugate-gradient matrix products see it: face transmissibilities
+/// per axis and the diagonal term `c`, padded, in double precision.
 #[derive(Clone, Copy)]
 pub struct OpView<'a> {
     pub g: Grid,
@@ -25,19 +25,32 @@ pub struct OpView<'a> {
     pub ty: &'a [f64],
     pub tz: &'a [f64],
     pub c: &'a [f64],
-    pub inv_d: &'a [f64],
 }
 
 impl OpView<'_> {
     fn check(&self) {
         let n = self.g.len;
-        assert!(
-            self.tx.len() == n
-                && self.ty.len() == n
-                && self.tz.len() == n
-                && self.c.len() == n
-                && self.inv_d.len() == n
-        );
+        assert!(self.tx.len() == n && self.ty.len() == n && self.tz.len() == n && self.c.len() == n);
+    }
+}
+
+/// A 7-point operator as the multigrid sees it: face transmissibilities and the inverse diagonal
+/// `1 / d`, padded, stored in single precision (half the bytes to stream) and used in double
+/// precision arithmetic. The operator is the one with exactly these faces and diagonal
+/// `d = 1 / inv_d`, so smoothing and residuals agree to double-precision rounding.
+#[derive(Clone, Copy)]
+pub struct SmoothView<'a> {
+    pub g: Grid,
+    pub tx: &'a [f32],
+    pub ty: &'a [f32],
+    pub tz: &'a [f32],
+    pub inv_d: &'a [f32],
+}
+
+impl SmoothView<'_> {
+    fn check(&self) {
+        let n = self.g.len;
+        assert!(self.tx.len() == n && self.ty.len() == n && self.tz.len() == n && self.inv_d.len() == n);
     }
 }
 
@@ -73,41 +86,72 @@ fn row_apply(op: &OpView<'_>, u: &[f64], p0: usize, out: &mut [f64]) {
     }
 }
 
+/// Whether the AVX2 builds of the row loops can run on this processor. They compute exactly what
+/// the portable builds compute (the same operations in the same order, no fused multiply-add),
+/// only four lanes at a time.
+#[inline]
+fn wide() -> bool {
+    #[cfg(target_arch = "x86_64")]
+    {
+        std::arch::is_x86_feature_detected!("avx2")
+    }
+    #[cfg(not(target_arch = "x86_64"))]
+    {
+        false
+    }
+}
+
+/// `A u` on the rows of padded plane `k` into that plane's slice `pl`; returns `u . (A u)` over
+/// the plane when `dot`.
+#[inline(always)]
+fn plane_apply_body(op: &OpView<'_>, u: &[f64], k: usize, pl: &mut [f64], dot: bool) -> f64 {
+    let g = op.g;
+    let nx = g.n[0];
+    let mut s = 0.0;
+    for j in 1..=g.n[1] {
+        let p0 = g.sz * k + g.sy * j + 1;
+        let o = g.sy * j + 1;
+        let row = &mut pl[o..o + nx];
+        row_apply(op, u, p0, row);
+        if dot {
+            s += dot_row(&u[p0..p0 + nx], row);
+        }
+    }
+    s
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2")]
+fn plane_apply_wide(op: &OpView<'_>, u: &[f64], k: usize, pl: &mut [f64], dot: bool) -> f64 {
+    plane_apply_body(op, u, k, pl, dot)
+}
+
+fn plane_apply(op: &OpView<'_>, u: &[f64], k: usize, pl: &mut [f64], dot: bool) -> f64 {
+    #[cfg(target_arch = "x86_64")]
+    if wide() {
+        // SAFETY: the processor has AVX2 (checked just above).
+        return unsafe { plane_apply_wide(op, u, k, pl, dot) };
+    }
+    plane_apply_body(op, u, k, pl, dot)
+}
+
 /// `out = A u` on the interior; ghosts of `out` untouched.
 pub fn apply(op: &OpView<'_>, u: &[f64], out: &mut [f64]) {
     op.check();
-    let g = op.g;
-    let nx = g.n[0];
-    g.planes(out, |k, pl| {
-        for j in 1..=g.n[1] {
-            let p0 = g.sz * k + g.sy * j + 1;
-            let o = g.sy * j + 1;
-            row_apply(op, u, p0, &mut pl[o..o + nx]);
-        }
+    op.g.planes(out, |k, pl| {
+        plane_apply(op, u, k, pl, false);
     });
 }
 
 /// `out = A u`; returns `u . out` (partials per plane, added in plane order).
 pub fn apply_dot(op: &OpView<'_>, u: &[f64], out: &mut [f64], partials: &mut [f64]) -> f64 {
     op.check();
-    let g = op.g;
-    let nx = g.n[0];
-    g.planes_sum(out, partials, |k, pl| {
-        let mut s = 0.0;
-        for j in 1..=g.n[1] {
-            let p0 = g.sz * k + g.sy * j + 1;
-            let o = g.sy * j + 1;
-            let row = &mut pl[o..o + nx];
-            row_apply(op, u, p0, row);
-            s += dot_row(&u[p0..p0 + nx], row);
-        }
-        s
-    })
+    op.g.planes_sum(out, partials, |k, pl| plane_apply(op, u, k, pl, true))
 }
 
-/// `r = f - A u` on the interior.
+/// `r = f - A u` on the interior, for a multigrid operator (tests).
 #[cfg(test)]
-pub fn residual(op: &OpView<'_>, u: &[f64], f: &[f64], r: &mut [f64]) {
+pub fn residual_smooth(op: &SmoothView<'_>, u: &[f64], f: &[f64], r: &mut [f64]) {
     op.check();
     let g = op.g;
     let nx = g.n[0];
@@ -116,7 +160,7 @@ pub fn residual(op: &OpView<'_>, u: &[f64], f: &[f64], r: &mut [f64]) {
             let p0 = g.sz * k + g.sy * j + 1;
             let o = g.sy * j + 1;
             let row = &mut pl[o..o + nx];
-            row_apply(op, u, p0, row);
+            row_apply_smooth(op, u, p0, row);
             let fr = &f[p0..p0 + nx];
             for i in 0..nx {
                 row[i] = fr[i] - row[i];
@@ -173,7 +217,7 @@ enum Read {
 /// contract: no other thread writes a value this call reads, and no other thread reads or writes
 /// a cell of this colour in this row.
 #[inline(always)]
-unsafe fn row_colour(op: &OpView<'_>, u: *mut f64, f: &[f64], kp: usize, jp: usize, colour: usize, read: Read) {
+unsafe fn row_colour(op: &SmoothView<'_>, u: *mut f64, f: &[f64], kp: usize, jp: usize, colour: usize, read: Read) {
     let g = op.g;
     let nx = g.n[0];
     let (sy, sz) = (g.sy, g.sz);
@@ -185,7 +229,7 @@ unsafe fn row_colour(op: &OpView<'_>, u: *mut f64, f: &[f64], kp: usize, jp: usi
             while i < nx {
                 let p = row0 + i;
                 // SAFETY: p is an interior cell of this row (contract above).
-                unsafe { *u.add(p) = f[p] * op.inv_d[p] };
+                unsafe { *u.add(p) = f[p] * f64::from(op.inv_d[p]) };
                 i += 2;
             }
         }
@@ -197,13 +241,13 @@ unsafe fn row_colour(op: &OpView<'_>, u: *mut f64, f: &[f64], kp: usize, jp: usi
                 // the other colour (or ghosts), which no thread writes now (contract above).
                 unsafe {
                     let s = f[p]
-                        + op.tx[p] * *u.add(p - 1)
-                        + op.tx[p + 1] * *u.add(p + 1)
-                        + op.ty[p] * *u.add(p - sy)
-                        + op.ty[p + sy] * *u.add(p + sy)
-                        + op.tz[p] * *u.add(p - sz)
-                        + op.tz[p + sz] * *u.add(p + sz);
-                    *u.add(p) = s * op.inv_d[p];
+                        + f64::from(op.tx[p]) * *u.add(p - 1)
+                        + f64::from(op.tx[p + 1]) * *u.add(p + 1)
+                        + f64::from(op.ty[p]) * *u.add(p - sy)
+                        + f64::from(op.ty[p + sy]) * *u.add(p + sy)
+                        + f64::from(op.tz[p]) * *u.add(p - sz)
+                        + f64::from(op.tz[p + sz]) * *u.add(p + sz);
+                    *u.add(p) = s * f64::from(op.inv_d[p]);
                 }
                 i += 2;
             }
@@ -237,13 +281,13 @@ unsafe fn row_colour(op: &OpView<'_>, u: *mut f64, f: &[f64], kp: usize, jp: usi
                     let v = &mut v[..m];
                     for i in 0..m {
                         let s = fr[i]
-                            + tx[i] * uc[i]
-                            + tx[i + 1] * uc[i + 2]
-                            + tys[i] * us[i]
-                            + tyn[i] * un[i]
-                            + tzd[i] * ud[i]
-                            + tzu[i] * uu[i];
-                        v[i] = s * id[i];
+                            + f64::from(tx[i]) * uc[i]
+                            + f64::from(tx[i + 1]) * uc[i + 2]
+                            + f64::from(tys[i]) * us[i]
+                            + f64::from(tyn[i]) * un[i]
+                            + f64::from(tzd[i]) * ud[i]
+                            + f64::from(tzu[i]) * uu[i];
+                        v[i] = s * f64::from(id[i]);
                     }
                 }
                 // Keep the cells of this colour. A cell of the other colour in this chunk was
@@ -260,6 +304,33 @@ unsafe fn row_colour(op: &OpView<'_>, u: *mut f64, f: &[f64], kp: usize, jp: usi
     }
 }
 
+/// `(A u)` along one row of a [`SmoothView`] operator (diagonal `1 / inv_d`), like [`row_apply`].
+#[inline(always)]
+fn row_apply_smooth(op: &SmoothView<'_>, u: &[f64], p0: usize, out: &mut [f64]) {
+    let nx = out.len();
+    let (sy, sz) = (op.g.sy, op.g.sz);
+    let uc = &u[p0 - 1..p0 + nx + 1];
+    let us = &u[p0 - sy..p0 - sy + nx];
+    let un = &u[p0 + sy..p0 + sy + nx];
+    let ud = &u[p0 - sz..p0 - sz + nx];
+    let uu = &u[p0 + sz..p0 + sz + nx];
+    let tx = &op.tx[p0..p0 + nx + 1];
+    let tys = &op.ty[p0..p0 + nx];
+    let tyn = &op.ty[p0 + sy..p0 + sy + nx];
+    let tzd = &op.tz[p0..p0 + nx];
+    let tzu = &op.tz[p0 + sz..p0 + sz + nx];
+    let id = &op.inv_d[p0..p0 + nx];
+    for i in 0..nx {
+        out[i] = uc[i + 1] / f64::from(id[i])
+            - (f64::from(tx[i]) * uc[i]
+                + f64::from(tx[i + 1]) * uc[i + 2]
+                + f64::from(tys[i]) * us[i]
+                + f64::from(tyn[i]) * un[i]
+                + f64::from(tzd[i]) * ud[i]
+                + f64::from(tzu[i]) * uu[i]);
+    }
+}
+
 /// Residual `f - A u` in the row `(jp, kp)` at the cells of `colour`, zero at the other cells
 /// (where the sweep just solved the equations exactly, up to rounding).
 ///
@@ -267,7 +338,15 @@ unsafe fn row_colour(op: &OpView<'_>, u: *mut f64, f: &[f64], kp: usize, jp: usi
 /// `u` and `r` point to padded vectors of `op.g.len` values; no other thread writes planes
 /// `kp - 1..=kp + 1` of `u` or this row of `r` during the call.
 #[inline(always)]
-unsafe fn row_residual(op: &OpView<'_>, u: *const f64, f: &[f64], r: *mut f64, kp: usize, jp: usize, colour: usize) {
+unsafe fn row_residual(
+    op: &SmoothView<'_>,
+    u: *const f64,
+    f: &[f64],
+    r: *mut f64,
+    kp: usize,
+    jp: usize,
+    colour: usize,
+) {
     let g = op.g;
     let nx = g.n[0];
     let p0 = g.sz * kp + g.sy * jp + 1;
@@ -276,23 +355,78 @@ unsafe fn row_residual(op: &OpView<'_>, u: *const f64, f: &[f64], r: *mut f64, k
     // belongs to this call.
     let (uu, out) =
         unsafe { (std::slice::from_raw_parts(u.add(base), 3 * g.sz), std::slice::from_raw_parts_mut(r.add(p0), nx)) };
-    // `row_apply` indexes `u` from the start of plane kp - 1; the coefficients are indexed
+    // The row operator indexes `u` from the start of plane kp - 1; the coefficients are indexed
     // absolutely, so shift them by the same offset.
-    let shifted = OpView {
-        g,
-        tx: &op.tx[base..],
-        ty: &op.ty[base..],
-        tz: &op.tz[base..],
-        c: &op.c[base..],
-        inv_d: &op.inv_d[base..],
-    };
-    let p0 = p0 - base;
-    row_apply(&shifted, uu, p0, out);
-    let fr = &f[base + p0..base + p0 + nx];
+    let shifted =
+        SmoothView { g, tx: &op.tx[base..], ty: &op.ty[base..], tz: &op.tz[base..], inv_d: &op.inv_d[base..] };
+    row_apply_smooth(&shifted, uu, p0 - base, out);
+    let fr = &f[p0..p0 + nx];
     let first = (colour + (jp - 1) + (kp - 1)) % 2;
     for i in 0..nx {
         out[i] = if i % 2 == first { fr[i] - out[i] } else { 0.0 };
     }
+}
+
+/// [`row_colour`] over the rows of plane `kp`.
+///
+/// # Safety
+/// As [`row_colour`], for every row of the plane.
+#[inline(always)]
+unsafe fn plane_colour_body(op: &SmoothView<'_>, u: *mut f64, f: &[f64], kp: usize, colour: usize, read: Read) {
+    for jp in 1..=op.g.n[1] {
+        // SAFETY: the caller's contract.
+        unsafe { row_colour(op, u, f, kp, jp, colour, read) };
+    }
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2")]
+unsafe fn plane_colour_wide(op: &SmoothView<'_>, u: *mut f64, f: &[f64], kp: usize, colour: usize, read: Read) {
+    // SAFETY: the caller's contract.
+    unsafe { plane_colour_body(op, u, f, kp, colour, read) }
+}
+
+/// # Safety
+/// As [`row_colour`], for every row of the plane.
+unsafe fn plane_colour(op: &SmoothView<'_>, u: *mut f64, f: &[f64], kp: usize, colour: usize, read: Read) {
+    #[cfg(target_arch = "x86_64")]
+    if wide() {
+        // SAFETY: AVX2 is present; the rest is the caller's contract.
+        return unsafe { plane_colour_wide(op, u, f, kp, colour, read) };
+    }
+    // SAFETY: the caller's contract.
+    unsafe { plane_colour_body(op, u, f, kp, colour, read) }
+}
+
+/// [`row_residual`] over the rows of plane `kp`.
+///
+/// # Safety
+/// As [`row_residual`], for every row of the plane.
+#[inline(always)]
+unsafe fn plane_residual_body(op: &SmoothView<'_>, u: *const f64, f: &[f64], r: *mut f64, kp: usize, colour: usize) {
+    for jp in 1..=op.g.n[1] {
+        // SAFETY: the caller's contract.
+        unsafe { row_residual(op, u, f, r, kp, jp, colour) };
+    }
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2")]
+unsafe fn plane_residual_wide(op: &SmoothView<'_>, u: *const f64, f: &[f64], r: *mut f64, kp: usize, colour: usize) {
+    // SAFETY: the caller's contract.
+    unsafe { plane_residual_body(op, u, f, r, kp, colour) }
+}
+
+/// # Safety
+/// As [`row_residual`], for every row of the plane.
+unsafe fn plane_residual(op: &SmoothView<'_>, u: *const f64, f: &[f64], r: *mut f64, kp: usize, colour: usize) {
+    #[cfg(target_arch = "x86_64")]
+    if wide() {
+        // SAFETY: AVX2 is present; the rest is the caller's contract.
+        return unsafe { plane_residual_wide(op, u, f, r, kp, colour) };
+    }
+    // SAFETY: the caller's contract.
+    unsafe { plane_residual_body(op, u, f, r, kp, colour) }
 }
 
 /// One red-black Gauss-Seidel sweep: colour `c1` then `1 - c1`, where the colour of interior cell
@@ -306,7 +440,7 @@ unsafe fn row_residual(op: &OpView<'_>, u: *const f64, f: &[f64], r: *mut f64, k
 ///   on plane `k` (reading only colour-1 cells on `s0` and `last`, whose neighbour planes belong
 ///   to other slabs), the residual of plane `k - 1` when it is inside the slab;
 /// - phase C: the residual of planes `s0` and `last` (nobody writes `u` any more).
-pub fn sweep(op: &OpView<'_>, u: &mut [f64], f: &[f64], c1: usize, from_zero: bool, r: Option<&mut [f64]>) {
+pub fn sweep(op: &SmoothView<'_>, u: &mut [f64], f: &[f64], c1: usize, from_zero: bool, r: Option<&mut [f64]>) {
     op.check();
     let g = op.g;
     assert!(u.len() == g.len && f.len() == g.len);
@@ -321,25 +455,20 @@ pub fn sweep(op: &OpView<'_>, u: &mut [f64], f: &[f64], c1: usize, from_zero: bo
     let sh = Shared { u: u.as_mut_ptr(), r: rptr };
     let c2 = 1 - c1;
     let nz = g.n[2];
-    let ny = g.n[1];
     let slabs = if g.parallel() { rayon::current_num_threads().clamp(1, nz.div_ceil(4)) } else { 1 };
     let bounds = move |s: usize| (1 + s * nz / slabs, 1 + (s + 1) * nz / slabs);
     let first_read = if from_zero { Read::Zero } else { Read::OtherColour };
     let interior_read = if from_zero { Read::Zero } else { Read::Rows };
     let colour_plane = move |kp: usize, colour: usize, read: Read| {
         let sh = sh;
-        for jp in 1..=ny {
-            // SAFETY: the phase structure above gives the contract of `row_colour`.
-            unsafe { row_colour(op, sh.u, f, kp, jp, colour, read) };
-        }
+        // SAFETY: the phase structure above gives the contract of `row_colour`.
+        unsafe { plane_colour(op, sh.u, f, kp, colour, read) };
     };
     let residual_plane = move |kp: usize| {
         let sh = sh;
-        for jp in 1..=ny {
-            // SAFETY: planes kp - 1..=kp + 1 of u are final and owned (phase B) or read-only
-            // (phase C); the row of r belongs to the slab of kp.
-            unsafe { row_residual(op, sh.u, f, sh.r, kp, jp, c1) };
-        }
+        // SAFETY: planes kp - 1..=kp + 1 of u are final and owned (phase B) or read-only
+        // (phase C); the row of r belongs to the slab of kp.
+        unsafe { plane_residual(op, sh.u, f, sh.r, kp, c1) };
     };
     let run = |task: &(dyn Fn(usize) + Sync)| {
         if slabs > 1 {
@@ -385,7 +514,7 @@ pub fn sweep(op: &OpView<'_>, u: &mut [f64], f: &[f64], c1: usize, from_zero: bo
 
 /// Pre-smoothing from `u = 0`: `sweeps` sweeps colour 0 then 1; the residual after the last one
 /// goes to `r`.
-pub fn pre_smooth(op: &OpView<'_>, u: &mut [f64], f: &[f64], sweeps: usize, r: &mut [f64]) {
+pub fn pre_smooth(op: &SmoothView<'_>, u: &mut [f64], f: &[f64], sweeps: usize, r: &mut [f64]) {
     assert!(sweeps >= 1);
     for s in 0..sweeps {
         let last = s + 1 == sweeps;
@@ -394,7 +523,7 @@ pub fn pre_smooth(op: &OpView<'_>, u: &mut [f64], f: &[f64], sweeps: usize, r: &
 }
 
 /// Post-smoothing, the adjoint of [`pre_smooth`]: `sweeps` sweeps colour 1 then 0.
-pub fn post_smooth(op: &OpView<'_>, u: &mut [f64], f: &[f64], sweeps: usize) {
+pub fn post_smooth(op: &SmoothView<'_>, u: &mut [f64], f: &[f64], sweeps: usize) {
     for _ in 0..sweeps {
         sweep(op, u, f, 1, false, None);
     }
@@ -402,7 +531,7 @@ pub fn post_smooth(op: &OpView<'_>, u: &mut [f64], f: &[f64], sweeps: usize) {
 
 /// Two-pass reference sweep (colour `c1` on every plane, then `1 - c1`), for tests.
 #[cfg(test)]
-pub fn sweep_two_pass(op: &OpView<'_>, u: &mut [f64], f: &[f64], c1: usize) {
+pub fn sweep_two_pass(op: &SmoothView<'_>, u: &mut [f64], f: &[f64], c1: usize) {
     let g = op.g;
     let p = u.as_mut_ptr();
     for colour in [c1, 1 - c1] {

@@ -25,7 +25,7 @@ use rayon::prelude::*;
 
 use super::SolveError;
 use super::grid::{Grid, zeros};
-use super::kernels::{self, OpView};
+use super::kernels::{self, SmoothView};
 use super::stencil::Stencil7;
 
 /// Most cells of the coarsest level (solved densely).
@@ -99,13 +99,35 @@ impl AxisTransfer {
     }
 }
 
+/// The operator of one level in the form the smoother streams: faces and inverse diagonal in
+/// single precision (see [`SmoothView`]).
+#[derive(Debug, Clone)]
+struct Coeffs {
+    t: [Vec<f32>; 3],
+    inv_d: Vec<f32>,
+}
+
+impl Coeffs {
+    fn zeros(g: &Grid) -> Self {
+        Coeffs { t: [vec![0.0; g.len], vec![0.0; g.len], vec![0.0; g.len]], inv_d: vec![0.0; g.len] }
+    }
+
+    fn view(&self, g: Grid) -> SmoothView<'_> {
+        SmoothView { g, tx: &self.t[0], ty: &self.t[1], tz: &self.t[2], inv_d: &self.inv_d }
+    }
+
+    fn bytes(&self) -> usize {
+        4 * (self.t.iter().map(Vec::len).sum::<usize>() + self.inv_d.len())
+    }
+}
+
 /// One coarse level: its operator, vectors and the transfer from the level above.
 #[derive(Debug, Clone)]
 struct Level {
     g: Grid,
-    t: [Vec<f64>; 3],
+    op: Coeffs,
+    /// Diagonal term `c` (sum of the children's), for coarsening further.
     c: Vec<f64>,
-    inv_d: Vec<f64>,
     u: Vec<f64>,
     f: Vec<f64>,
     r: Vec<f64>,
@@ -115,12 +137,6 @@ struct Level {
     /// (prolongation).
     rbuf: Vec<f64>,
     pbuf: Vec<f64>,
-}
-
-impl Level {
-    fn view(&self) -> OpView<'_> {
-        OpView { g: self.g, tx: &self.t[0], ty: &self.t[1], tz: &self.t[2], c: &self.c, inv_d: &self.inv_d }
-    }
 }
 
 /// Dense Cholesky factor of the coarsest level.
@@ -148,24 +164,23 @@ impl Dense {
         Dense { m, map, l: vec![0.0; m * m], y: vec![0.0; m] }
     }
 
-    fn factor(&mut self, op: &OpView<'_>) -> Result<(), SolveError> {
+    fn factor(&mut self, op: &SmoothView<'_>) -> Result<(), SolveError> {
         let m = self.m;
         let g = op.g;
         let l = &mut self.l;
         l.iter_mut().for_each(|v| *v = 0.0);
         for (row, &p) in self.map.iter().enumerate() {
-            l[row * m + row] =
-                op.c[p] + op.tx[p] + op.tx[p + 1] + op.ty[p] + op.ty[p + g.sy] + op.tz[p] + op.tz[p + g.sz];
+            l[row * m + row] = 1.0 / f64::from(op.inv_d[p]);
             let [i, j, k] = [row % g.n[0], (row / g.n[0]) % g.n[1], row / (g.n[0] * g.n[1])];
             // Lower neighbours only (the factor is lower triangular).
             if i > 0 {
-                l[row * m + row - 1] = -op.tx[p];
+                l[row * m + row - 1] = -f64::from(op.tx[p]);
             }
             if j > 0 {
-                l[row * m + row - g.n[0]] = -op.ty[p];
+                l[row * m + row - g.n[0]] = -f64::from(op.ty[p]);
             }
             if k > 0 {
-                l[row * m + row - g.n[0] * g.n[1]] = -op.tz[p];
+                l[row * m + row - g.n[0] * g.n[1]] = -f64::from(op.tz[p]);
             }
         }
         for j in 0..m {
@@ -219,9 +234,18 @@ impl Dense {
 }
 
 /// The multigrid hierarchy below a fine operator.
+///
+/// The hierarchy preconditions `s A` for a power of two `s` that brings the largest diagonal
+/// entry of the fine operator near one (so the single-precision coefficients stay far from the
+/// ends of their range); conjugate gradients do not see a constant factor of the
+/// preconditioner, and a power of two scales exactly.
 #[derive(Debug, Clone)]
 pub struct Multigrid {
     fine: Grid,
+    /// The fine operator as the smoother streams it.
+    fine_op: Coeffs,
+    /// The power of two `s`.
+    scale: f64,
     /// Fine residual.
     r0: Vec<f64>,
     levels: Vec<Level>,
@@ -236,9 +260,8 @@ fn coarse_dims(n: [usize; 3]) -> [usize; 3] {
 }
 
 impl Multigrid {
-    /// Allocates the hierarchy of `op` and computes its coefficients; `inv_d0` is the inverse
-    /// diagonal of `op` ([`Stencil7::inverse_diagonal_into`]).
-    pub fn new(op: &Stencil7, inv_d0: &[f64], sweeps: usize) -> Result<Self, SolveError> {
+    /// Allocates the hierarchy of `op` and computes its coefficients.
+    pub fn new(op: &Stencil7, sweeps: usize) -> Result<Self, SolveError> {
         let fine = op.g;
         let mut levels: Vec<Level> = Vec::new();
         let mut n = fine.n;
@@ -249,9 +272,8 @@ impl Multigrid {
             let transfer = [0, 1, 2].map(|a| AxisTransfer::new(n[a], nc[a]));
             levels.push(Level {
                 g,
-                t: [zeros(&g), zeros(&g), zeros(&g)],
+                op: Coeffs::zeros(&g),
                 c: zeros(&g),
-                inv_d: zeros(&g),
                 u: zeros(&g),
                 f: zeros(&g),
                 r: zeros(&g),
@@ -263,8 +285,9 @@ impl Multigrid {
             above = g;
         }
         let dense = Dense::new(&Grid::new(n));
-        let mut mg = Multigrid { fine, r0: zeros(&fine), levels, dense, sweeps };
-        mg.update(op, inv_d0)?;
+        let fine_op = Coeffs::zeros(&fine);
+        let mut mg = Multigrid { fine, fine_op, scale: 1.0, r0: zeros(&fine), levels, dense, sweeps };
+        mg.update(op)?;
         Ok(mg)
     }
 
@@ -273,12 +296,11 @@ impl Multigrid {
         std::iter::once(self.fine.n).chain(self.levels.iter().map(|l| l.g.n)).collect()
     }
 
-    /// Bytes held by the hierarchy (vectors and coarse operators).
+    /// Bytes held by the hierarchy (fine coefficients, vectors and coarse operators).
     pub fn memory_bytes(&self) -> usize {
-        let mut b = 8 * self.r0.len();
+        let mut b = 8 * self.r0.len() + self.fine_op.bytes();
         for l in &self.levels {
-            b += 8 * (l.t.iter().map(Vec::len).sum::<usize>() + l.c.len() + l.inv_d.len() + l.u.len() + l.f.len());
-            b += 8 * (l.r.len() + l.rbuf.len() + l.pbuf.len());
+            b += l.op.bytes() + 8 * (l.c.len() + l.u.len() + l.f.len() + l.r.len() + l.rbuf.len() + l.pbuf.len());
             for t in &l.transfer {
                 b += 32 * t.fine.len() + t.coarse.iter().map(|c| 24 + 16 * c.len()).sum::<usize>();
             }
@@ -286,37 +308,56 @@ impl Multigrid {
         b + 8 * (self.dense.l.len() + self.dense.y.len() + self.dense.map.len())
     }
 
-    /// Recomputes every level from the fine operator (same dimensions) and its inverse diagonal
-    /// `inv_d0`, in place.
-    pub fn update(&mut self, op: &Stencil7, inv_d0: &[f64]) -> Result<(), SolveError> {
+    /// Recomputes every level from the fine operator (same dimensions), in place.
+    pub fn update(&mut self, op: &Stencil7) -> Result<(), SolveError> {
         if op.g != self.fine {
             return Err(SolveError::Shape { expected: self.fine.n, found: op.g.n });
         }
+        let g = op.g;
+        // The scale: largest diagonal entry of s A in [1, 2).
+        let mut dmax = 0.0f64;
+        for k in 1..=g.n[2] {
+            for j in 1..=g.n[1] {
+                for i in 1..=g.n[0] {
+                    let p = g.sz * k + g.sy * j + i;
+                    dmax = dmax.max(diagonal(&op.t, &op.c, &g, p));
+                }
+            }
+        }
+        if !(dmax.is_finite() && dmax > 0.0) {
+            return Err(SolveError::Singular {
+                what: "the operator has no diagonal term and no conducting face anywhere (or a coefficient that \
+                       is not finite)"
+                    .into(),
+            });
+        }
+        self.scale = 2f64.powi(-(dmax.log2().floor() as i32));
+        let s = self.scale;
+        single_precision(&g, &op.t, &op.c, s, &mut self.fine_op)?;
         for l in 0..self.levels.len() {
             let (above, below) = self.levels.split_at_mut(l);
-            let (g_f, t_f, c_f) = match above.last() {
-                Some(a) => (a.g, &a.t, &a.c),
-                None => (op.g, &op.t, &op.c),
-            };
             let lev = &mut below[0];
-            coarsen(&g_f, t_f, c_f, lev);
-            inverse_diagonal(&lev.g, &lev.t, &lev.c, &mut lev.inv_d)?;
+            match above.last() {
+                Some(a) => coarsen(&a.g, |ax, p| f64::from(a.op.t[ax][p]), |p| a.c[p], lev)?,
+                None => coarsen(&g, |ax, p| s * op.t[ax][p], |p| s * op.c[p], lev)?,
+            }
+            let gf = above.last().map_or(g, |a| a.g);
             for a in 0..3 {
-                let w = wall_weights(&lev.g, &lev.t[a], a);
-                lev.transfer[a].set(g_f.n[a], lev.g.n[a], w);
+                let w = wall_weights(&lev.g, &lev.op.t[a], a);
+                lev.transfer[a].set(gf.n[a], lev.g.n[a], w);
             }
         }
         match self.levels.last() {
-            Some(l) => self.dense.factor(&l.view()),
-            None => self.dense.factor(&op.view(inv_d0)),
+            Some(l) => self.dense.factor(&l.op.view(l.g)),
+            None => self.dense.factor(&self.fine_op.view(g)),
         }
     }
 
-    /// One V-cycle for `A u = f` from `u = 0` on the fine level: writes `u` (padded; ghosts stay
-    /// zero).
-    pub fn vcycle(&mut self, op: &Stencil7, inv_d0: &[f64], f: &[f64], u: &mut [f64]) {
+    /// One V-cycle for `A u = f` from `u = 0`: writes `u` (padded; ghosts stay zero), an
+    /// approximation of `(s A)^-1 f`.
+    pub fn vcycle(&mut self, f: &[f64], u: &mut [f64]) {
         let nu = self.sweeps;
-        let fine = op.view(inv_d0);
+        let fine = self.fine_op.view(self.fine);
         if self.levels.is_empty() {
             self.dense.solve(f, u);
             return;
@@ -327,7 +368,7 @@ impl Multigrid {
         for l in 0..nl - 1 {
             let (a, b) = self.levels.split_at_mut(l + 1);
             let lev = &mut a[l];
-            let view = OpView { g: lev.g, tx: &lev.t[0], ty: &lev.t[1], tz: &lev.t[2], c: &lev.c, inv_d: &lev.inv_d };
+            let view = lev.op.view(lev.g);
             kernels::pre_smooth(&view, &mut lev.u, &lev.f, nu, &mut lev.r);
             restrict(&lev.g, &lev.r, &mut b[0]);
         }
@@ -339,35 +380,52 @@ impl Multigrid {
             let (a, b) = self.levels.split_at_mut(l + 1);
             let lev = &mut a[l];
             prolong_add(&mut b[0], &lev.g, &mut lev.u);
-            let view = OpView { g: lev.g, tx: &lev.t[0], ty: &lev.t[1], tz: &lev.t[2], c: &lev.c, inv_d: &lev.inv_d };
+            let view = lev.op.view(lev.g);
             kernels::post_smooth(&view, &mut lev.u, &lev.f, nu);
         }
         prolong_add(&mut self.levels[0], &self.fine, u);
         kernels::post_smooth(&fine, u, f, nu);
     }
+
+    /// The fine operator as the smoother sees it (tests).
+    #[cfg(test)]
+    pub fn fine_view(&self) -> SmoothView<'_> {
+        self.fine_op.view(self.fine)
+    }
 }
 
-/// `inv_d = 1 / (c + sum of the six faces)` on the interior; fails where that sum is not
-/// positive and finite (a cell that nothing ties down).
-pub fn inverse_diagonal(g: &Grid, t: &[Vec<f64>; 3], c: &[f64], inv_d: &mut [f64]) -> Result<(), SolveError> {
+/// `c + sum of the six faces` of padded cell `p`.
+#[inline]
+fn diagonal(t: &[Vec<f64>; 3], c: &[f64], g: &Grid, p: usize) -> f64 {
+    c[p] + t[0][p] + t[0][p + 1] + t[1][p] + t[1][p + g.sy] + t[2][p] + t[2][p + g.sz]
+}
+
+/// Fills the single-precision operator of `s A`: every face (boundary faces included) and the
+/// inverse diagonal of the interior; fails at a cell that nothing ties down.
+fn single_precision(g: &Grid, t: &[Vec<f64>; 3], c: &[f64], s: f64, out: &mut Coeffs) -> Result<(), SolveError> {
+    for a in 0..3 {
+        for (o, &v) in out.t[a].iter_mut().zip(&t[a]) {
+            *o = (s * v) as f32;
+        }
+    }
     let g = *g;
-    g.planes(inv_d, |k, pl| {
+    g.planes(&mut out.inv_d, |k, pl| {
         for j in 1..=g.n[1] {
             for i in 1..=g.n[0] {
                 let p = g.sz * k + g.sy * j + i;
-                let d = c[p] + t[0][p] + t[0][p + 1] + t[1][p] + t[1][p + g.sy] + t[2][p] + t[2][p + g.sz];
-                pl[p - g.sz * k] = if d > 0.0 && d.is_finite() { 1.0 / d } else { f64::NAN };
+                let d = s * diagonal(t, c, &g, p);
+                pl[p - g.sz * k] = if d > 0.0 { (1.0 / d) as f32 } else { f32::NAN };
             }
         }
     });
-    check_diagonal(&g, inv_d)
+    check_diagonal(&g, &out.inv_d)
 }
 
-fn check_diagonal(g: &Grid, d: &[f64]) -> Result<(), SolveError> {
+fn check_diagonal(g: &Grid, d: &[f32]) -> Result<(), SolveError> {
     for k in 1..=g.n[2] {
         for j in 1..=g.n[1] {
             let p0 = g.sz * k + g.sy * j + 1;
-            if let Some(i) = d[p0..p0 + g.n[0]].iter().position(|&v| !v.is_finite()) {
+            if let Some(i) = d[p0..p0 + g.n[0]].iter().position(|&v| !(v.is_finite() && v > 0.0)) {
                 return Err(SolveError::Singular {
                     what: format!(
                         "cell ({i}, {}, {}) of a {:?} level has no diagonal term and no conducting face \
@@ -390,7 +448,7 @@ fn check_diagonal(g: &Grid, d: &[f64]) -> Result<(), SolveError> {
 /// face), so the fine cell a quarter coarse spacing from the face gets
 /// `(s + h/4) / (s + h/2) = 1 - T_b / (4 T_in)` of its parent: 1 for zero flux, 1/2 for a fixed
 /// value. Averaged over the face, within [1/2, 1].
-fn wall_weights(g: &Grid, t: &[f64], axis: usize) -> [f64; 2] {
+fn wall_weights(g: &Grid, t: &[f32], axis: usize) -> [f64; 2] {
     let n = g.n;
     if n[axis] < 2 {
         return [1.0, 1.0];
@@ -411,9 +469,9 @@ fn wall_weights(g: &Grid, t: &[f64], axis: usize) -> [f64; 2] {
                 f[u1] = a;
                 f[u2] = b;
                 f[axis] = outer;
-                let tb = t[g.pad(f[0], f[1], f[2])];
+                let tb = f64::from(t[g.pad(f[0], f[1], f[2])]);
                 f[axis] = inner;
-                let ti = t[g.pad(f[0], f[1], f[2])];
+                let ti = f64::from(t[g.pad(f[0], f[1], f[2])]);
                 if ti > 0.0 {
                     sum += tb / ti;
                     count += 1;
@@ -434,7 +492,16 @@ fn children(c: usize, nf: usize) -> (usize, usize) {
 }
 
 /// Re-discretised coarse faces and diagonal from the fine level (see the module notes).
-fn coarsen(gf: &Grid, tf: &[Vec<f64>; 3], cf: &[f64], lev: &mut Level) {
+///
+/// `tf(axis, p)` is the fine face on the lower side of padded fine cell `p` along `axis` and
+/// `cf(p)` its diagonal term. The coarse faces are stored in single precision and the coarse
+/// diagonal `c + sum of those faces` is inverted from them.
+fn coarsen(
+    gf: &Grid,
+    tf: impl Fn(usize, usize) -> f64 + Sync,
+    cf: impl Fn(usize) -> f64 + Sync,
+    lev: &mut Level,
+) -> Result<(), SolveError> {
     let gc = lev.g;
     let nf = gf.n;
     let nc = gc.n;
@@ -451,7 +518,7 @@ fn coarsen(gf: &Grid, tf: &[Vec<f64>; 3], cf: &[f64], lev: &mut Level) {
                     for k in k0..k0 + kn {
                         for j in j0..j0 + jn {
                             for i in i0..i0 + inn {
-                                s += cf[gf.pad(i, j, k)];
+                                s += cf(gf.pad(i, j, k));
                             }
                         }
                     }
@@ -461,18 +528,17 @@ fn coarsen(gf: &Grid, tf: &[Vec<f64>; 3], cf: &[f64], lev: &mut Level) {
         });
     }
     for axis in 0..3 {
-        let tfa = &tf[axis];
         let (u1, u2) = match axis {
             0 => (1, 2),
             1 => (0, 2),
             _ => (0, 1),
         };
-        let t = &mut lev.t[axis];
-        let fine_face = |f: [usize; 3]| tfa[gf.pad(f[0], f[1], f[2])];
+        let t = &mut lev.op.t[axis];
+        let fine_face = |f: [usize; 3]| tf(axis, gf.pad(f[0], f[1], f[2]));
         // Coarse faces: coordinate along `axis` in 0..=nc[axis], the others interior. Planes of
         // the padded array run over z; a face plane along z may be the ghost plane nc[2] + 1.
         let kmax = if axis == 2 { nc[2] + 1 } else { nc[2] };
-        let body = |kc: usize, pl: &mut [f64]| {
+        let body = |kc: usize, pl: &mut [f32]| {
             if kc == 0 || kc > kmax {
                 return;
             }
@@ -521,7 +587,7 @@ fn coarsen(gf: &Grid, tf: &[Vec<f64>; 3], cf: &[f64], lev: &mut Level) {
                         }
                     }
                     let p = gc.pad(cc[0], cc[1], cc[2]);
-                    pl[p - gc.sz * kc] = total;
+                    pl[p - gc.sz * kc] = total as f32;
                 }
             }
         };
@@ -531,6 +597,23 @@ fn coarsen(gf: &Grid, tf: &[Vec<f64>; 3], cf: &[f64], lev: &mut Level) {
             t.chunks_mut(gc.sz).enumerate().for_each(|(kc, pl)| body(kc, pl));
         }
     }
+    let (t, c) = (&lev.op.t, &lev.c);
+    gc.planes(&mut lev.op.inv_d, |k, pl| {
+        for j in 1..=nc[1] {
+            for i in 1..=nc[0] {
+                let p = gc.sz * k + gc.sy * j + i;
+                let d = c[p]
+                    + f64::from(t[0][p])
+                    + f64::from(t[0][p + 1])
+                    + f64::from(t[1][p])
+                    + f64::from(t[1][p + gc.sy])
+                    + f64::from(t[2][p])
+                    + f64::from(t[2][p + gc.sz]);
+                pl[p - gc.sz * k] = if d > 0.0 { (1.0 / d) as f32 } else { f32::NAN };
+            }
+        }
+    });
+    check_diagonal(&gc, &lev.op.inv_d)
 }
 
 /// `lev.f = R r` with `R` the transpose of the trilinear prolongation.

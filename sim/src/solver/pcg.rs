@@ -13,8 +13,6 @@ use super::{SolveError, SolveReport, SolverOptions};
 pub struct Solver {
     g: Grid,
     mg: Multigrid,
-    /// Inverse diagonal of the operator, refreshed at every solve.
-    inv_d0: Vec<f64>,
     x: Vec<f64>,
     r: Vec<f64>,
     z: Vec<f64>,
@@ -29,13 +27,10 @@ impl Solver {
     /// Builds the solver of `op` (allocates everything the solves will need).
     pub fn new(op: &Stencil7, options: SolverOptions) -> Result<Self, SolveError> {
         let g = op.g;
-        let mut inv_d0 = zeros(&g);
-        op.inverse_diagonal_into(&mut inv_d0)?;
-        let mg = Multigrid::new(op, &inv_d0, options.sweeps)?;
+        let mg = Multigrid::new(op, options.sweeps)?;
         Ok(Solver {
             g,
             mg,
-            inv_d0,
             x: zeros(&g),
             r: zeros(&g),
             z: zeros(&g),
@@ -53,8 +48,7 @@ impl Solver {
             return Err(SolveError::Shape { expected: self.g.n, found: op.g.n });
         }
         self.mg.sweeps = self.options.sweeps;
-        op.inverse_diagonal_into(&mut self.inv_d0)?;
-        self.mg.update(op, &self.inv_d0)
+        self.mg.update(op)
     }
 
     /// Cells per multigrid level, finest first.
@@ -64,13 +58,7 @@ impl Solver {
 
     /// Bytes held by the solver (vectors and hierarchy), not counting the operator.
     pub fn memory_bytes(&self) -> usize {
-        8 * (self.inv_d0.len()
-            + self.x.len()
-            + self.r.len()
-            + self.z.len()
-            + self.p.len()
-            + self.q.len()
-            + self.partials.len())
+        8 * (self.x.len() + self.r.len() + self.z.len() + self.p.len() + self.q.len() + self.partials.len())
             + self.mg.memory_bytes()
     }
 
@@ -85,17 +73,9 @@ impl Solver {
         if f.len() != n || u.len() != n {
             return Err(SolveError::Shape { expected: self.g.n, found: [f.len().min(u.len()), 1, 1] });
         }
-        op.inverse_diagonal_into(&mut self.inv_d0)?;
-        let inv_d0 = std::mem::take(&mut self.inv_d0);
-        let result = self.iterate(op, &inv_d0, f, u);
-        self.inv_d0 = inv_d0;
-        result
-    }
-
-    fn iterate(&mut self, op: &Stencil7, inv_d0: &[f64], f: &[f64], u: &mut [f64]) -> Result<SolveReport, SolveError> {
         let tol = self.options.tolerance;
         let g = self.g;
-        let a = op.view(inv_d0);
+        let a = op.view();
         scatter(&g, f, &mut self.r);
         let bnorm = self.norm2_r();
         if !bnorm.is_finite() {
@@ -122,7 +102,7 @@ impl Solver {
             }
             it += 1;
             // z = M r
-            self.mg.vcycle(op, inv_d0, &self.r, &mut self.z);
+            self.mg.vcycle(&self.r, &mut self.z);
             let rz_new = self.dot(DotPair::RZ);
             if rz_new.is_nan() || rz_new <= 0.0 {
                 return Err(SolveError::NotFinite {

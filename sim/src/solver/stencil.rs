@@ -311,8 +311,7 @@ impl Stencil7 {
         let mut up = super::grid::zeros(g);
         let mut op = super::grid::zeros(g);
         super::grid::scatter(g, u, &mut up);
-        let unused = super::grid::zeros(g);
-        super::kernels::apply(&self.view(&unused), &up, &mut op);
+        super::kernels::apply(&self.view(), &up, &mut op);
         super::grid::gather(g, &op, out);
     }
 
@@ -361,15 +360,9 @@ impl Stencil7 {
         out
     }
 
-    /// Writes the inverse of the matrix diagonal into a padded vector (no allocation); fails at a
-    /// cell whose diagonal is not positive and finite.
-    pub(crate) fn inverse_diagonal_into(&self, inv_d: &mut [f64]) -> Result<(), super::SolveError> {
-        super::multigrid::inverse_diagonal(&self.g, &self.t, &self.c, inv_d)
-    }
-
-    /// A borrowed view for the kernels, with the inverse matrix diagonal `inv_d`.
-    pub(crate) fn view<'a>(&'a self, inv_d: &'a [f64]) -> super::kernels::OpView<'a> {
-        super::kernels::OpView { g: self.g, tx: &self.t[0], ty: &self.t[1], tz: &self.t[2], c: &self.c, inv_d }
+    /// A borrowed view for the kernels.
+    pub(crate) fn view(&self) -> super::kernels::OpView<'_> {
+        super::kernels::OpView { g: self.g, tx: &self.t[0], ty: &self.t[1], tz: &self.t[2], c: &self.c }
     }
 }
 
