@@ -403,8 +403,8 @@ fn diagonal(t: &[Vec<f64>; 3], c: &[f64], g: &Grid, p: usize) -> f64 {
 /// Fills the single-precision operator of `s A`: every face (boundary faces included) and the
 /// inverse diagonal of the interior; fails at a cell that nothing ties down.
 fn single_precision(g: &Grid, t: &[Vec<f64>; 3], c: &[f64], s: f64, out: &mut Coeffs) -> Result<(), SolveError> {
-    for a in 0..3 {
-        for (o, &v) in out.t[a].iter_mut().zip(&t[a]) {
+    for (oa, ta) in out.t.iter_mut().zip(t) {
+        for (o, &v) in oa.iter_mut().zip(ta) {
             *o = (s * v) as f32;
         }
     }
