@@ -543,3 +543,50 @@ pub fn sweep_two_pass(op: &SmoothView<'_>, u: &mut [f64], f: &[f64], c1: usize) 
         }
     }
 }
+
+#[cfg(all(test, target_arch = "x86_64"))]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn wide_and_portable_row_loops_agree_bit_for_bit() {
+        if !wide() {
+            return; // nothing to compare on this processor
+        }
+        let (op, f0) = crate::solver::tests::random_problem([37, 11, 6], 31);
+        let g = op.g;
+        let mg = crate::solver::multigrid::Multigrid::new(&op, 1).unwrap();
+        let v = mg.fine_view();
+        let mut f = crate::solver::grid::zeros(&g);
+        crate::solver::grid::scatter(&g, &f0, &mut f);
+        let mut a = f.iter().map(|x| 0.3 * x).collect::<Vec<_>>();
+        let mut b = a.clone();
+        let (mut ra, mut rb) = (crate::solver::grid::zeros(&g), crate::solver::grid::zeros(&g));
+        for kp in 1..=g.n[2] {
+            // SAFETY: single thread; AVX2 checked above.
+            unsafe {
+                plane_colour_body(&v, a.as_mut_ptr(), &f, kp, 0, Read::Rows);
+                plane_colour_wide(&v, b.as_mut_ptr(), &f, kp, 0, Read::Rows);
+            }
+        }
+        assert!(a.iter().zip(&b).all(|(x, y)| x.to_bits() == y.to_bits()));
+        for kp in 1..=g.n[2] {
+            // SAFETY: as above.
+            unsafe {
+                plane_residual_body(&v, a.as_ptr(), &f, ra.as_mut_ptr(), kp, 1);
+                plane_residual_wide(&v, b.as_ptr(), &f, rb.as_mut_ptr(), kp, 1);
+            }
+        }
+        assert!(ra.iter().zip(&rb).all(|(x, y)| x.to_bits() == y.to_bits()));
+        let ov = op.view();
+        let (mut qa, mut qb) = (crate::solver::grid::zeros(&g), crate::solver::grid::zeros(&g));
+        for k in 1..=g.n[2] {
+            let o = g.sz * k;
+            let da = plane_apply_body(&ov, &a, k, &mut qa[o..o + g.sz], true);
+            // SAFETY: AVX2 checked above.
+            let db = unsafe { plane_apply_wide(&ov, &a, k, &mut qb[o..o + g.sz], true) };
+            assert_eq!(da.to_bits(), db.to_bits());
+        }
+        assert!(qa.iter().zip(&qb).all(|(x, y)| x.to_bits() == y.to_bits()));
+    }
+}

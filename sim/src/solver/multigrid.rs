@@ -314,16 +314,22 @@ impl Multigrid {
             return Err(SolveError::Shape { expected: self.fine.n, found: op.g.n });
         }
         let g = op.g;
-        // The scale: largest diagonal entry of s A in [1, 2).
-        let mut dmax = 0.0f64;
-        for k in 1..=g.n[2] {
+        // The scale: largest diagonal entry of s A in [1, 2). A maximum does not depend on the
+        // order of the planes.
+        let plane_max = |k: usize| {
+            let mut m = 0.0f64;
             for j in 1..=g.n[1] {
                 for i in 1..=g.n[0] {
-                    let p = g.sz * k + g.sy * j + i;
-                    dmax = dmax.max(diagonal(&op.t, &op.c, &g, p));
+                    m = m.max(diagonal(&op.t, &op.c, &g, g.sz * k + g.sy * j + i));
                 }
             }
-        }
+            m
+        };
+        let dmax = if g.parallel() {
+            (1..=g.n[2]).into_par_iter().map(plane_max).reduce(|| 0.0, f64::max)
+        } else {
+            (1..=g.n[2]).map(plane_max).fold(0.0, f64::max)
+        };
         if !(dmax.is_finite() && dmax > 0.0) {
             return Err(SolveError::Singular {
                 what: "the operator has no diagonal term and no conducting face anywhere (or a coefficient that \
@@ -403,12 +409,19 @@ fn diagonal(t: &[Vec<f64>; 3], c: &[f64], g: &Grid, p: usize) -> f64 {
 /// Fills the single-precision operator of `s A`: every face (boundary faces included) and the
 /// inverse diagonal of the interior; fails at a cell that nothing ties down.
 fn single_precision(g: &Grid, t: &[Vec<f64>; 3], c: &[f64], s: f64, out: &mut Coeffs) -> Result<(), SolveError> {
+    let g = *g;
     for (oa, ta) in out.t.iter_mut().zip(t) {
-        for (o, &v) in oa.iter_mut().zip(ta) {
-            *o = (s * v) as f32;
+        let convert = |(o, v): (&mut [f32], &[f64])| {
+            for (o, &v) in o.iter_mut().zip(v) {
+                *o = (s * v) as f32;
+            }
+        };
+        if g.parallel() {
+            oa.par_chunks_mut(g.sz).zip(ta.par_chunks(g.sz)).for_each(convert);
+        } else {
+            oa.chunks_mut(g.sz).zip(ta.chunks(g.sz)).for_each(convert);
         }
     }
-    let g = *g;
     g.planes(&mut out.inv_d, |k, pl| {
         for j in 1..=g.n[1] {
             for i in 1..=g.n[0] {

@@ -372,3 +372,16 @@ fn cell_density_rule_closes_the_crowded_interior() {
     assert!(rim > 100 && rim_open * 2 > rim, "rim: {rim_open} of {rim} open");
     let _ = centre;
 }
+
+#[test]
+fn an_undetermined_pressure_is_refused_in_the_scenario() {
+    let text = "[fluid]\nboundary = \"zero-flux\"\n[lymphatics]\nhost_drainage_per_mmHg_s = 0.0\n\
+                tumour_drainage_per_mmHg_s = 0.0\n[vessels.continuum]\nhost_surface_per_volume_per_cm = 0.0\n\
+                tumour_surface_per_volume_per_cm = 0.0\n";
+    let e = LoadedScenario::from_text(std::path::Path::new("t.toml"), text.to_string()).unwrap_err();
+    let msg = e.to_string();
+    assert!(msg.contains("t.toml:2: `fluid.boundary`") && msg.contains("undetermined"), "{msg}");
+    // Any exchange at all ties it down.
+    let ok = text.replace("host_drainage_per_mmHg_s = 0.0", "host_drainage_per_mmHg_s = 1e-6");
+    assert!(LoadedScenario::from_text(std::path::Path::new("t.toml"), ok).is_ok());
+}
