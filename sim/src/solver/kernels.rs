@@ -429,21 +429,51 @@ unsafe fn plane_residual(op: &SmoothView<'_>, u: *const f64, f: &[f64], r: *mut 
     unsafe { plane_residual_body(op, u, f, r, kp, colour) }
 }
 
-/// One red-black Gauss-Seidel sweep: colour `c1` then `1 - c1`, where the colour of interior cell
-/// `(i, j, k)` is `(i + j + k) % 2`. With `from_zero`, `u` is taken as zero before the sweep (its
-/// content is ignored). With `r`, the residual `f - A u` after the sweep is written there (zero
-/// at the cells of the second colour).
+/// Most red-black sweeps one call of [`smooth`] pipelines.
+pub const MAX_SWEEPS: usize = 4;
+
+/// One stage of a smoothing pipeline, applied plane by plane.
+#[derive(Clone, Copy, PartialEq, Eq)]
+enum Stage {
+    /// Gauss-Seidel update of one colour; `zero`: the vector is zero before (first stage of a
+    /// smoothing from zero).
+    Colour { colour: usize, zero: bool },
+    /// Residual at the cells of `colour`, zero at the others.
+    Residual { colour: usize },
+}
+
+/// `sweeps` red-black Gauss-Seidel sweeps, each colour `c1` then `1 - c1` (the colour of interior
+/// cell `(i, j, k)` is `(i + j + k) % 2`), and with `r` the residual `f - A u` afterwards (zero at
+/// the cells of the colour updated last, where the last half-sweep solved the equations). With
+/// `from_zero`, `u` is taken as zero before (its content is ignored).
 ///
-/// Threads own slabs of planes `[s0, s1)`; per slab, with `last = s1 - 1`:
-/// - phase A: colour 1 on planes `s0` and `last`, reading only cells of colour 2;
-/// - phase B: for each plane `k`: colour 1 on plane `k + 1` when it is inside the slab, colour 2
-///   on plane `k` (reading only colour-1 cells on `s0` and `last`, whose neighbour planes belong
-///   to other slabs), the residual of plane `k - 1` when it is inside the slab;
-/// - phase C: the residual of planes `s0` and `last` (nobody writes `u` any more).
-pub fn sweep(op: &SmoothView<'_>, u: &mut [f64], f: &[f64], c1: usize, from_zero: bool, r: Option<&mut [f64]>) {
+/// The stages (colour updates, then the residual) run as one pipeline over the z-planes: at step
+/// `t` stage `i` works on plane `t - i`, so each array is streamed once for all the sweeps; stage
+/// `i` on plane `k` needs stage `i - 1` on planes `k - 1..=k + 1` and must run before stage
+/// `i + 1` overwrites them, which this order gives. The result is that of plain sweeps, colour by
+/// colour over the whole lattice, bit for bit: every update is the same expression of the same
+/// values.
+///
+/// In parallel, threads own slabs of planes `[lo, hi)`, at least `2 m + 2` planes thick for `m`
+/// stages. Phase 1: each slab runs the pipeline on a trapezoid, stage `i` on
+/// `[lo + i, hi - i)` (not shrunk at the ends of the lattice); only stage 0 touches the planes next
+/// to another slab, and there it reads only cells of the other colour, which no thread writes in
+/// this phase. Phase 2: around each boundary `b` between slabs, one thread runs the pipeline on
+/// the wedge, stage `i` on `[b - i, b + i)`; the wedges are too far apart to read each other's
+/// planes, and phase 1 wrote nothing a wedge still reads.
+pub fn smooth(
+    op: &SmoothView<'_>,
+    u: &mut [f64],
+    f: &[f64],
+    c1: usize,
+    sweeps: usize,
+    from_zero: bool,
+    r: Option<&mut [f64]>,
+) {
     op.check();
     let g = op.g;
     assert!(u.len() == g.len && f.len() == g.len);
+    assert!((1..=MAX_SWEEPS).contains(&sweeps), "1 to {MAX_SWEEPS} sweeps");
     let want_r = r.is_some();
     let rptr = match r {
         Some(r) => {
@@ -453,80 +483,75 @@ pub fn sweep(op: &SmoothView<'_>, u: &mut [f64], f: &[f64], c1: usize, from_zero
         None => std::ptr::null_mut(),
     };
     let sh = Shared { u: u.as_mut_ptr(), r: rptr };
-    let c2 = 1 - c1;
+    let mut stages = [Stage::Residual { colour: c1 }; 2 * MAX_SWEEPS + 1];
+    for (i, st) in stages.iter_mut().take(2 * sweeps).enumerate() {
+        *st = Stage::Colour { colour: if i % 2 == 0 { c1 } else { 1 - c1 }, zero: from_zero && i == 0 };
+    }
+    let m = 2 * sweeps + usize::from(want_r);
+    let stages = &stages[..m];
     let nz = g.n[2];
-    let slabs = if g.parallel() { rayon::current_num_threads().clamp(1, nz.div_ceil(4)) } else { 1 };
+    let slabs = if g.parallel() { rayon::current_num_threads().clamp(1, (nz / (2 * m + 2)).max(1)) } else { 1 };
+    // Padded planes 1..=nz; slab s covers [lo, hi).
     let bounds = move |s: usize| (1 + s * nz / slabs, 1 + (s + 1) * nz / slabs);
-    let first_read = if from_zero { Read::Zero } else { Read::OtherColour };
-    let interior_read = if from_zero { Read::Zero } else { Read::Rows };
-    let colour_plane = move |kp: usize, colour: usize, read: Read| {
+    let run_stage = move |stage: Stage, kp: usize, read: Read| {
         let sh = sh;
-        // SAFETY: the phase structure above gives the contract of `row_colour`.
-        unsafe { plane_colour(op, sh.u, f, kp, colour, read) };
-    };
-    let residual_plane = move |kp: usize| {
-        let sh = sh;
-        // SAFETY: planes kp - 1..=kp + 1 of u are final and owned (phase B) or read-only
-        // (phase C); the row of r belongs to the slab of kp.
-        unsafe { plane_residual(op, sh.u, f, sh.r, kp, c1) };
-    };
-    let run = |task: &(dyn Fn(usize) + Sync)| {
-        if slabs > 1 {
-            (0..slabs).into_par_iter().for_each(task);
-        } else {
-            task(0);
+        match stage {
+            // SAFETY: the phase structure above gives the contract of `row_colour`.
+            Stage::Colour { colour, zero } => unsafe {
+                plane_colour(op, sh.u, f, kp, colour, if zero { Read::Zero } else { read })
+            },
+            // SAFETY: planes kp - 1..=kp + 1 of u are final for this call and written by no other
+            // thread while this stage runs; the row of r belongs to this stage.
+            Stage::Residual { colour } => unsafe { plane_residual(op, sh.u, f, sh.r, kp, colour) },
         }
     };
-    // Phase A.
-    run(&|s| {
-        let (s0, s1) = bounds(s);
-        colour_plane(s0, c1, first_read);
-        if s1 - 1 > s0 {
-            colour_plane(s1 - 1, c1, first_read);
-        }
-    });
-    // Phase B.
-    run(&|s| {
-        let (s0, s1) = bounds(s);
-        let last = s1 - 1;
-        for k in s0..=last {
-            if k + 1 < last {
-                colour_plane(k + 1, c1, interior_read);
-            }
-            let read = if k == s0 || k == last { Read::OtherColour } else { Read::Rows };
-            colour_plane(k, c2, read);
-            if want_r && k - 1 > s0 && k - 1 < last {
-                residual_plane(k - 1);
+    // Phase 1: the trapezoids.
+    let phase1 = |s: usize| {
+        let (lo, hi) = bounds(s);
+        let (first, last) = (s == 0, s + 1 == slabs);
+        for t in lo..hi + m {
+            for (i, &stage) in stages.iter().enumerate() {
+                let Some(k) = t.checked_sub(i) else { continue };
+                let klo = if first { lo } else { lo + i };
+                let khi = if last { hi } else { hi - i };
+                if k < klo || k >= khi {
+                    continue;
+                }
+                let edge = (k == lo && !first) || (k + 1 == hi && !last);
+                run_stage(stage, k, if edge { Read::OtherColour } else { Read::Rows });
             }
         }
-    });
-    // Phase C.
-    if want_r {
-        run(&|s| {
-            let (s0, s1) = bounds(s);
-            residual_plane(s0);
-            if s1 - 1 > s0 {
-                residual_plane(s1 - 1);
+    };
+    // Phase 2: the wedges around the slab boundaries.
+    let phase2 = |b: usize| {
+        let (edge, _) = bounds(b);
+        for t in edge - m..edge + 2 * m {
+            for (i, &stage) in stages.iter().enumerate() {
+                let Some(k) = t.checked_sub(i) else { continue };
+                if k + i < edge || k >= edge + i {
+                    continue;
+                }
+                run_stage(stage, k, Read::Rows);
             }
-        });
+        }
+    };
+    if slabs > 1 {
+        (0..slabs).into_par_iter().for_each(phase1);
+        (1..slabs).into_par_iter().for_each(phase2);
+    } else {
+        phase1(0);
     }
 }
 
-/// Pre-smoothing from `u = 0`: `sweeps` sweeps colour 0 then 1; the residual after the last one
-/// goes to `r`.
+/// Pre-smoothing from `u = 0`: `sweeps` sweeps colour 0 then 1; the residual after them goes to
+/// `r`.
 pub fn pre_smooth(op: &SmoothView<'_>, u: &mut [f64], f: &[f64], sweeps: usize, r: &mut [f64]) {
-    assert!(sweeps >= 1);
-    for s in 0..sweeps {
-        let last = s + 1 == sweeps;
-        sweep(op, u, f, 0, s == 0, if last { Some(&mut *r) } else { None });
-    }
+    smooth(op, u, f, 0, sweeps, true, Some(r));
 }
 
 /// Post-smoothing, the adjoint of [`pre_smooth`]: `sweeps` sweeps colour 1 then 0.
 pub fn post_smooth(op: &SmoothView<'_>, u: &mut [f64], f: &[f64], sweeps: usize) {
-    for _ in 0..sweeps {
-        sweep(op, u, f, 1, false, None);
-    }
+    smooth(op, u, f, 1, sweeps, false, None);
 }
 
 /// Two-pass reference sweep (colour `c1` on every plane, then `1 - c1`), for tests.

@@ -166,10 +166,10 @@ fn the_iteration_limit_is_reported() {
 }
 
 #[test]
-fn the_wavefront_sweep_equals_the_two_pass_sweep_bit_for_bit() {
+fn the_pipelined_sweeps_equal_plain_sweeps_bit_for_bit() {
     use super::kernels;
-    // Big enough for several slabs; odd sizes so rows start with either colour.
-    for n in [[37, 21, 40], [8, 9, 33], [5, 4, 3]] {
+    // Thick enough for several slabs at 2 to 5 threads; odd sizes so rows start with either colour.
+    for n in [[37, 21, 61], [8, 9, 33], [5, 4, 3], [6, 130, 14]] {
         let (op, f0) = random_problem(n, 21);
         let g = op.g;
         let mg = Multigrid::new(&op, 1).unwrap();
@@ -180,16 +180,22 @@ fn the_wavefront_sweep_equals_the_two_pass_sweep_bit_for_bit() {
         let start: Vec<f64> = (0..op.len()).map(|_| s.uniform()).collect();
         let mut u0 = zeros(&g);
         scatter(&g, &start, &mut u0);
-        for threads in [1, 2, 5] {
+        for threads in [1, 2, 3, 5] {
             let pool = rayon::ThreadPoolBuilder::new().num_threads(threads).build().unwrap();
             pool.install(|| {
-                for c1 in [0, 1] {
+                for (c1, sweeps, zero) in
+                    [(0, 1, false), (1, 1, true), (0, 2, false), (1, 2, true), (0, 3, true), (1, 4, false)]
+                {
                     let mut a = u0.clone();
-                    let mut b = u0.clone();
                     let mut r = zeros(&g);
-                    kernels::sweep(&v, &mut a, &f, c1, false, Some(&mut r));
-                    kernels::sweep_two_pass(&v, &mut b, &f, c1);
-                    assert!(a.iter().zip(&b).all(|(x, y)| x.to_bits() == y.to_bits()), "{n:?} {threads} {c1}");
+                    kernels::smooth(&v, &mut a, &f, c1, sweeps, zero, Some(&mut r));
+                    let mut b = if zero { zeros(&g) } else { u0.clone() };
+                    for _ in 0..sweeps {
+                        kernels::sweep_two_pass(&v, &mut b, &f, c1);
+                    }
+                    let case =
+                        format!("{n:?}, {threads} threads, first colour {c1}, {sweeps} sweeps, from zero {zero}");
+                    assert!(a.iter().zip(&b).all(|(x, y)| x.to_bits() == y.to_bits()), "{case}");
                     // The fused residual equals the plain one at the first colour, zero elsewhere.
                     let mut rr = zeros(&g);
                     kernels::residual_smooth(&v, &b, &f, &mut rr);
@@ -198,94 +204,16 @@ fn the_wavefront_sweep_equals_the_two_pass_sweep_bit_for_bit() {
                             for i in 0..n[0] {
                                 let p = g.pad(i, j, k);
                                 let want = if (i + j + k) % 2 == c1 { rr[p] } else { 0.0 };
-                                assert_eq!(r[p].to_bits(), want.to_bits(), "{n:?} ({i},{j},{k})");
+                                assert_eq!(r[p].to_bits(), want.to_bits(), "{case}: ({i},{j},{k})");
                             }
                         }
                     }
-                    // From zero: equal to a sweep of a zeroed vector, whatever `u` held.
-                    let mut z = u0.clone();
-                    kernels::sweep(&v, &mut z, &f, c1, true, None);
-                    let mut zz = zeros(&g);
-                    kernels::sweep_two_pass(&v, &mut zz, &f, c1);
-                    assert!(z.iter().zip(&zz).all(|(x, y)| x.to_bits() == y.to_bits()), "{n:?} from zero");
+                    // Without the residual.
+                    let mut c = u0.clone();
+                    kernels::smooth(&v, &mut c, &f, c1, sweeps, zero, None);
+                    assert!(c.iter().zip(&b).all(|(x, y)| x.to_bits() == y.to_bits()), "{case}, no residual");
                 }
             });
         }
     }
-}
-
-#[test]
-#[ignore = "timing scratch"]
-fn debug_tmp() {
-    for m in [32usize, 64, 128] {
-        let n = [m, m, m];
-        let len = m * m * m;
-        let h = 1.0 / m as f64;
-        for (name, cval, wall) in [
-            ("dirichlet", 0.0, Wall::Fixed(0.0)),
-            ("neumann+c", 10.0, Wall::ZeroFlux),
-            ("robin", 0.0, Wall::Exterior { value: 0.0, distance: 0.1 }),
-        ] {
-            let (op, _) = Stencil7::from_conductivity(n, h, &vec![1.0; len], &vec![cval * h * h * h; len], |_, _| wall);
-            let f = vec![h * h * h; len];
-            for sweeps in [1, 2] {
-                let mut solver =
-                    Solver::new(&op, SolverOptions { tolerance: 1e-8, sweeps, ..Default::default() }).unwrap();
-                let mut u = vec![0.0; op.len()];
-                let rep = solver.solve(&op, &f, &mut u).unwrap();
-                eprintln!("{name} {m} sweeps {sweeps}: {}", rep.iterations);
-            }
-        }
-    }
-    panic!();
-}
-
-#[test]
-#[ignore = "timing scratch"]
-fn debug_kernels() {
-    use super::kernels;
-    let m = 128;
-    let (op, _) = random_problem([m, m, m], 1);
-    let g = op.g;
-    let mut mg = Multigrid::new(&op, 2).unwrap();
-    let mut u = zeros(&g);
-    let f = vec![1.0; g.len];
-    let mut r = zeros(&g);
-    let mut partials = vec![0.0; m + 2];
-    let reps = 10;
-    {
-        let v = mg.fine_view();
-        let t = std::time::Instant::now();
-        for _ in 0..reps {
-            kernels::sweep(&v, &mut u, &f, 0, false, None);
-        }
-        eprintln!("sweep {:.2} ms", t.elapsed().as_secs_f64() * 1e3 / reps as f64);
-        let t = std::time::Instant::now();
-        for _ in 0..reps {
-            kernels::sweep(&v, &mut u, &f, 0, false, Some(&mut r));
-        }
-        eprintln!("sweep+residual {:.2} ms", t.elapsed().as_secs_f64() * 1e3 / reps as f64);
-    }
-    let a = op.view();
-    let t = std::time::Instant::now();
-    for _ in 0..reps {
-        kernels::apply_dot(&a, &u, &mut r, &mut partials);
-    }
-    eprintln!("apply_dot {:.2} ms", t.elapsed().as_secs_f64() * 1e3 / reps as f64);
-    let t = std::time::Instant::now();
-    for _ in 0..reps {
-        g.planes(&mut r, |k, pl| {
-            let o = g.sz * k;
-            for (a, b) in pl.iter_mut().zip(&u[o..o + g.sz]) {
-                *a += 0.5 * b;
-            }
-        });
-    }
-    eprintln!("axpy {:.2} ms", t.elapsed().as_secs_f64() * 1e3 / reps as f64);
-    let t = std::time::Instant::now();
-    for _ in 0..reps {
-        mg.vcycle(&f, &mut u);
-    }
-    eprintln!("vcycle(2) {:.2} ms", t.elapsed().as_secs_f64() * 1e3 / reps as f64);
-    panic!();
 }
