@@ -161,7 +161,7 @@ checked_plain!(FluidBoundary);
 section! {
     /// Interstitial fluid: steady Darcy flow with Starling sources and lymphatic sinks.
     pub struct FluidSection {
-        /// Hydraulic conductivity: "matrix" (from the fibre fractions of [matrix]) or "table" (per region, below).
+        /// Hydraulic conductivity: "matrix" (from the fibre fractions of the matrix section) or "table" (per region, below).
         conductivity: ConductivityModel = ConductivityModel::Matrix;
         /// Viscosity of interstitial fluid, mPa s (default: water at 37 C, IAPWS 2008).
         viscosity_mPa_s: f64 = 0.6913, Check::closed(0.1, 100.0);

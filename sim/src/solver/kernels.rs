@@ -1,16 +1,13 @@
 //! The hot loops: operator application, residual and red-black Gauss-Seidel, on padded storage.
 //!
 //! Rows are processed on fixed-length slices (or fixed-size chunks) so that bounds checks leave
-//! the inner loops and the compiler can vectorise them.
+//! the inner loops and the compiler can vectorise them; on processors with AVX2 the same loops
+//! run from a second build with four lanes (chosen at run time, same results).
 //!
-//! A red-black sweep (colour `c1` then `c2`) runs as a wavefront over z-planes: colour `c1` on
-//! plane `k + 1`, then `c2` on plane `k`, then (optionally) the residual on plane `k - 1`, so each
-//! array is streamed once per sweep instead of once per colour. Threads own slabs of planes. The
-//! result is that of the plain two-pass sweep, bit for bit, for any slab count: every cell is
-//! updated by the same expression from the same inputs (cells of one colour only neighbour cells
-//! of the other). Ownership rules that keep threads from racing (see [`sweep`]): a row is read
-//! whole (vectorised) only when every plane it reads belongs to the reading thread in that phase;
-//! rows next to another thread's slab read only the cells no thread writes in that phase.
+//! Smoothing ([`smooth`]) pipelines its red-black half-sweeps and the residual over the z-planes,
+//! so each array is streamed once per smoothing step; threads own slabs of planes and never read
+//! what another thread is writing (the rules are stated at [`smooth`]). Results are those of
+//! plain colour-by-colour sweeps, bit for bit, for any number of threads.
 
 use rayon::prelude::*;
 

@@ -7,7 +7,8 @@
 //!   [`Stencil7::from_conductivity`] builds it from a cell coefficient with harmonic-mean faces.
 //! - [`Solver`] is conjugate gradients preconditioned by a geometric multigrid V-cycle (red-black
 //!   Gauss-Seidel smoothing, trilinear transfers, re-discretised coarse operators, dense Cholesky
-//!   on the coarsest level). It allocates everything once per lattice size; [`Solver::update`]
+//!   on the coarsest level; the multigrid streams single-precision copies of the coefficients,
+//!   the arithmetic is double precision throughout). It allocates everything once per lattice size; [`Solver::update`]
 //!   refreshes the hierarchy after the coefficients change, and a solve starts from whatever the
 //!   solution vector holds (a warm start).
 //! - Results are bit-identical for any number of threads: red-black sweeps update cells whose

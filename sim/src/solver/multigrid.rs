@@ -18,6 +18,11 @@
 //!   Mountain Conference on Multigrid Methods, "The multigrid preconditioned conjugate gradient
 //!   method").
 //!
+//! - Storage: every level's operator (faces and inverse diagonal) in single precision, scaled by
+//!   a power of two; arithmetic in double precision. The multigrid operator of a level is exactly
+//!   the one these numbers describe, so the V-cycle stays a symmetric linear operator; the
+//!   conjugate-gradient products use the double-precision operator.
+//!
 //! All storage is allocated when the hierarchy is built; [`Multigrid::update`] refreshes the
 //! coefficients in place and a V-cycle allocates nothing.
 
