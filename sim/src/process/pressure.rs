@@ -540,7 +540,13 @@ pub fn solve_now(world: &mut World) -> SimResult<()> {
             PressureSolver { system, solver, seen: None }
         }
     };
-    let mut fluid = world.remove_resource::<InterstitialFluid>().expect("installed");
+    let Some(mut fluid) = world.remove_resource::<InterstitialFluid>() else {
+        return Err(SimError::Invariant {
+            time_s: world.resource::<Clock>().time,
+            step: world.resource::<Clock>().step,
+            what: "interstitial pressure: solved before the pressure process was installed".into(),
+        });
+    };
     let result = state.solver.solve(&state.system.stencil, &state.system.rhs, &mut fluid.pressure.data);
     let report = match result {
         Ok(r) => r,
