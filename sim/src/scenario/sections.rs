@@ -165,9 +165,9 @@ section! {
         conductivity: ConductivityModel = ConductivityModel::Matrix;
         /// Viscosity of interstitial fluid, mPa s (default: water at 37 C, IAPWS 2008).
         viscosity_mPa_s: f64 = 0.6913, Check::closed(0.1, 100.0);
-        /// Hydraulic conductivity of host tissue when conductivity = "table", cm^2/(mmHg s).
+        /// Hydraulic conductivity of host tissue when conductivity = "table", cm^2/(mmHg s) (default: Baxter and Jain 1989).
         host_conductivity_cm2_per_mmHg_s: f64 = 8.53e-9, Check::closed(1.0e-14, 1.0e-3);
-        /// Hydraulic conductivity of the tumour when conductivity = "table", cm^2/(mmHg s).
+        /// Hydraulic conductivity of the tumour when conductivity = "table", cm^2/(mmHg s) (default: Baxter and Jain 1989).
         tumour_conductivity_cm2_per_mmHg_s: f64 = 4.13e-8, Check::closed(1.0e-14, 1.0e-3);
         /// Faces of the lattice box: "host-equilibrium" (the tissue continues outside), "fixed" or "zero-flux".
         boundary: FluidBoundary = FluidBoundary::HostEquilibrium;
@@ -195,6 +195,8 @@ checked_plain!(LymphaticCollapse);
 
 section! {
     /// Lymphatic drainage of interstitial fluid: how much, and where tumour lymphatics still work.
+    /// The default drainage is chosen, not measured: with the default vessels it settles host
+    /// tissue near 1 mmHg (normal interstitial pressure is near 0 mmHg, common practice).
     pub struct LymphaticsSection {
         /// Lymphatic filtration coefficient times lymphatic surface per volume (LpL SL/V) in host tissue, 1/(mmHg s).
         host_drainage_per_mmHg_s: f64 = 4.0e-5, Check::closed(0.0, 1.0);
