@@ -43,6 +43,98 @@ enum Command {
     Defaults,
     /// Print the version and build provenance.
     Version,
+    /// Compute the delivery metrics of a run and write them as tidy CSV tables.
+    Metrics {
+        /// Run file (HDF5).
+        run: PathBuf,
+        /// Folder for metrics.csv, summary.csv, profiles.csv, coverage.csv and series.csv.
+        #[arg(short, long, default_value = "analysis")]
+        out: PathBuf,
+        #[command(flatten)]
+        analysis: AnalysisFlags,
+    },
+    /// Draw time courses, penetration profiles, coverage curves and field slices (PNG, SVG).
+    Plot {
+        /// Run file (HDF5).
+        run: PathBuf,
+        /// Folder for the images.
+        #[arg(short, long, default_value = "plots")]
+        out: PathBuf,
+        /// Field to slice (repeat for several; `total_<species>` sums a species' fields).
+        /// Default: region, porosity, pressure, oxygen, vessel_surface and each species' total.
+        #[arg(long = "field")]
+        fields: Vec<String>,
+        /// Snapshot of the slices (0-based; default: the last finished).
+        #[arg(long)]
+        snapshot: Option<usize>,
+        /// Axis normal to the slices: x, y or z.
+        #[arg(long, default_value = "z")]
+        axis: String,
+        /// Index of the slice along that axis (default: the middle).
+        #[arg(long)]
+        slice: Option<usize>,
+        /// Image formats: png, svg or both.
+        #[arg(long, default_value = "both", value_parser = ["png", "svg", "both"])]
+        format: String,
+        #[command(flatten)]
+        analysis: AnalysisFlags,
+    },
+    /// Write a self-contained HTML report of a run (plots embedded; opens offline).
+    Report {
+        /// Run file (HDF5).
+        run: PathBuf,
+        /// Report file (default: beside the run file, <name>-report.html).
+        #[arg(short, long)]
+        out: Option<PathBuf>,
+        #[command(flatten)]
+        analysis: AnalysisFlags,
+    },
+    /// Compare runs side by side on one HTML page (same metrics, overlaid curves).
+    Compare {
+        /// Run files (HDF5), two or more.
+        #[arg(required = true, num_args = 2..)]
+        runs: Vec<PathBuf>,
+        /// Comparison page.
+        #[arg(short, long, default_value = "comparison.html")]
+        out: PathBuf,
+        /// Also write the tables of every run together into this folder.
+        #[arg(long)]
+        csv: Option<PathBuf>,
+        #[command(flatten)]
+        analysis: AnalysisFlags,
+    },
+}
+
+/// Options of the analysis subcommands.
+#[derive(clap::Args)]
+struct AnalysisFlags {
+    /// Coverage threshold: internalised particles a cancer cell must exceed.
+    #[arg(long, default_value_t = interstice_analysis::metrics::DEFAULT_THRESHOLD_PARTICLES, allow_negative_numbers = true)]
+    threshold: f64,
+    /// Tissue density for %ID per gram, g/mL.
+    #[arg(long = "density-g-per-ml", default_value_t = interstice_analysis::metrics::DEFAULT_DENSITY_KG_PER_M3 / 1000.0, allow_negative_numbers = true)]
+    density_g_per_ml: f64,
+    /// Width of the penetration-profile bins, um (default: the voxel size).
+    #[arg(long = "bin-um", allow_negative_numbers = true)]
+    bin_um: Option<f64>,
+    /// Species to analyse (repeat for several; default: all).
+    #[arg(long)]
+    species: Vec<String>,
+    /// No progress bar.
+    #[arg(short, long)]
+    quiet: bool,
+}
+
+impl AnalysisFlags {
+    fn args(&self) -> interstice_analysis::cli::AnalysisArgs {
+        interstice_analysis::cli::AnalysisArgs {
+            threshold: self.threshold,
+            density_g_per_ml: self.density_g_per_ml,
+            bin_um: self.bin_um,
+            species: self.species.clone(),
+            quiet: self.quiet,
+        }
+    }
 }
 
 fn main() -> ExitCode {
@@ -98,6 +190,33 @@ fn run(cli: Cli) -> Result<(), Box<dyn std::error::Error>> {
         Command::Version => {
             println!("{}", provenance::build_line());
             println!("{}", provenance::CAUTION);
+        }
+        Command::Metrics { run, out, analysis } => {
+            let (files, summary) = interstice_analysis::cli::metrics(&run, &out, &analysis.args())?;
+            print!("{summary}");
+            for f in files {
+                eprintln!("interstice: wrote {}", f.display());
+            }
+        }
+        Command::Plot { run, out, fields, snapshot, axis, slice, format, analysis } => {
+            let p = interstice_analysis::cli::PlotArgs {
+                fields,
+                snapshot,
+                axis,
+                index: slice,
+                png: format != "svg",
+                svg: format != "png",
+            };
+            let files = interstice_analysis::cli::plots(&run, &out, &analysis.args(), &p)?;
+            eprintln!("interstice: wrote {} images into {}", files.len(), out.display());
+        }
+        Command::Report { run, out, analysis } => {
+            let path = interstice_analysis::cli::report(&run, out.as_deref(), &analysis.args())?;
+            eprintln!("interstice: wrote {}", path.display());
+        }
+        Command::Compare { runs, out, csv, analysis } => {
+            let path = interstice_analysis::cli::compare(&runs, &out, csv.as_deref(), &analysis.args())?;
+            eprintln!("interstice: wrote {}", path.display());
         }
     }
     Ok(())

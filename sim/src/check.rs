@@ -63,6 +63,7 @@ pub fn derived(loaded: &LoadedScenario) -> Vec<Derived> {
         "excluding packets",
     ));
     fluid_checks(&p, &mut out);
+    particle_lines(&p, &mut out);
     let steps = (p.run.end_time / p.run.time_step).ceil();
     out.push(d("time", "time step", p.run.time_step, "s", "requested"));
     out.push(d("time", "steps", steps, "1", "at the requested step"));
@@ -163,6 +164,73 @@ fn fluid_checks(p: &Params, out: &mut Vec<Derived>) {
     }
 }
 
+/// Per design: diffusion, hindrance, binding numbers and the time step the walk needs.
+fn particle_lines(p: &Params, out: &mut Vec<Derived>) {
+    use crate::process::binding::Kinetics;
+    use crate::process::transport::matrix_hindrance;
+    let kin = Kinetics::build(&p.designs, &p.binding);
+    let h = p.lattice.h;
+    for (s, d) in p.designs.0.iter().enumerate() {
+        let name = d.name.as_str();
+        let sec = "particles";
+        out.push(dd(sec, &format!("{name}: D0"), d.d0, "m2/s", "Stokes-Einstein in interstitial fluid"));
+        let mut d_region = [0.0; 2];
+        for (r, region) in ["host", "tumour"].iter().enumerate() {
+            let (ratio, part) =
+                matrix_hindrance(&p.transport, d.radius, p.matrix.collagen_fraction[r], p.matrix.gag_fraction[r]);
+            d_region[r] = d.d0 * ratio;
+            out.push(dd(sec, &format!("{name}: D/D0 {region}"), ratio, "1", "matrix hindrance"));
+            out.push(dd(sec, &format!("{name}: partition {region}"), part, "1", "accessible fraction of the fluid"));
+        }
+        let dmax = d_region[0].max(d_region[1]);
+        // A step of one sub-step keeps sqrt(6 D dt) within 3/4 of the largest move.
+        let lmax = p.transport.max_step_voxels * h;
+        let dt1 = 0.5625 * lmax * lmax / (6.0 * dmax);
+        out.push(dd(sec, &format!("{name}: step without sub-steps"), dt1, "s", "largest dt walked in one sub-step"));
+        out.push(dd(
+            sec,
+            &format!("{name}: sub-steps per step"),
+            (p.run.time_step / dt1).ceil().max(1.0),
+            "1",
+            "at the requested time step, where D is largest",
+        ));
+        let k = &kin.species[s];
+        if let Some(l) = &d.ligand {
+            let receptors = match l.target {
+                crate::scenario::ReceptorTarget::Cancer => p.cells.receptors[1] * p.cells.occupancy[1],
+                crate::scenario::ReceptorTarget::Host => p.cells.receptors[0] * p.cells.occupancy[0],
+            };
+            let vacc = p.matrix.porosity[1] * p.lattice.voxel_volume();
+            let k_capture = k.kon_eff * receptors / vacc;
+            let pen = (d_region[1] / k_capture).sqrt();
+            out.push(dd(
+                sec,
+                &format!("{name}: capture rate"),
+                k_capture,
+                "1/s",
+                "valency kon R / V_acc in the tumour",
+            ));
+            out.push(dd(sec, &format!("{name}: penetration length"), pen, "m", "sqrt(D / capture rate), tumour"));
+            out.push(dd(
+                sec,
+                &format!("{name}: binding Damkohler"),
+                k_capture * h * h / d_region[1],
+                "1",
+                "capture rate x voxel diffusion time h^2/D",
+            ));
+            let koff = k.koff_eff(receptors.max(1.0), p.binding.cell_area, p.binding.ligand_reach);
+            out.push(dd(sec, &format!("{name}: effective koff"), koff, "1/s", "with avidity of its valency"));
+        }
+        if k.phagocytosis > 0.0 {
+            out.push(dd(sec, &format!("{name}: phagocyte uptake"), k.phagocytosis, "1/s", "in a phagocyte's voxel"));
+        }
+    }
+}
+
+fn dd(section: &'static str, name: &str, value: f64, units: &'static str, note: &str) -> Derived {
+    d(section, name, value, units, note)
+}
+
 /// f64 fields held per voxel by the engine's resources at this stage.
 const FIELDS_F64: usize = 3;
 /// Approximate bytes of one cell entity.
@@ -177,7 +245,7 @@ pub fn render(rows: &[Derived]) -> String {
             section = r.section;
             s.push_str(&format!("[{section}]\n"));
         }
-        s.push_str(&format!("  {:<28} {:>14.6e} {:<8} {}\n", r.name, r.value, r.units, r.note));
+        s.push_str(&format!("  {:<36} {:>14.6e} {:<8} {}\n", r.name, r.value, r.units, r.note));
     }
     s
 }

@@ -79,6 +79,8 @@ pub struct CellParams {
     pub occupancy: [f64; 2],
     /// Receptors per cell, host and cancer cells.
     pub receptors: [f64; 2],
+    /// Fraction of tumour cells that are phagocytes.
+    pub tumour_phagocyte_fraction: f64,
 }
 
 /// Starling forces by region (index 0 host, 1 tumour).
@@ -165,6 +167,9 @@ pub struct Params {
     pub fluid: FluidParams,
     pub lymphatics: LymphaticParams,
     pub output: OutputParams,
+    pub transport: crate::process::transport::TransportParams,
+    pub binding: crate::process::binding::BindingParams,
+    pub designs: crate::particles::Designs,
 }
 
 impl Params {
@@ -211,6 +216,7 @@ impl Params {
             cells: CellParams {
                 occupancy: [s.cells.host_cell_fraction, s.cells.tumour_cell_fraction],
                 receptors: [s.cells.host_receptors_per_cell, s.cells.cancer_receptors_per_cell],
+                tumour_phagocyte_fraction: s.cells.tumour_phagocyte_fraction,
             },
             starling: StarlingParams {
                 plasma_oncotic: s.starling.plasma_oncotic_mmHg * MMHG,
@@ -258,6 +264,29 @@ impl Params {
                     density_half_width: l.density_half_width_um * UM,
                 }
             },
+            transport: crate::process::transport::TransportParams {
+                hindrance: s.transport.hindrance,
+                steric_partition: s.transport.steric_partition,
+                max_step_voxels: s.transport.max_step_voxels,
+                increments: s.transport.increments,
+                faces: s.transport.faces,
+                sort_interval_steps: u64::from(s.transport.sort_interval_steps),
+                collagen_fibre_radius: m.collagen_fibre_radius_nm * NM,
+                gag_fibre_radius: m.gag_fibre_radius_nm * NM,
+            },
+            binding: crate::process::binding::BindingParams {
+                receptor_recycling: s.binding.receptor_recycling_per_s,
+                cell_area: crate::particles::design::cell_area(s.binding.cell_radius_um),
+                ligand_reach: s.binding.ligand_reach_nm * NM,
+                adsorption_per_volt: s.binding.matrix_adsorption_per_s_mV * 1e3,
+                cationic_factor: s.binding.cationic_adsorption_factor,
+                matrix_reference_fraction: s.binding.matrix_reference_fraction,
+                desorption: s.binding.matrix_desorption_per_s,
+                phagocyte_uptake: s.uptake.phagocyte_uptake_per_s,
+                stealth_uptake_factor: s.uptake.stealth_uptake_factor,
+                uptake_charge_scale: s.uptake.uptake_charge_scale_mV * 1e-3,
+            },
+            designs: crate::particles::Designs::from_scenario(s),
             output: OutputParams {
                 compression_level: s.output.compression_level as u8,
                 packet_tables: s.output.packet_tables,

@@ -86,18 +86,32 @@ pub struct Cell {
     pub voxel: u32,
 }
 
-/// Surface receptors of a cell: the target number and how many are free now.
+/// Receptors of a cell: the number it maintains on its surface, how many are on the surface now
+/// (bound ones internalise with their particle and return by recycling), and how many of those
+/// are free.
 #[derive(Component, Debug, Clone, Copy)]
 pub struct Receptors {
     pub total: f64,
+    pub surface: f64,
     pub free: f64,
 }
 
-/// Particles bound to and internalised by a cell, per species (exact counts).
+impl Receptors {
+    /// A cell with `n` free receptors on its surface.
+    pub fn new(n: f64) -> Self {
+        Receptors { total: n, surface: n, free: n }
+    }
+}
+
+/// Particles held by a cell, per species (exact counts): bound to its receptors, internalised,
+/// and detached but not yet gathered into a packet (`held`: free particles at the cell's voxel).
 #[derive(Component, Debug, Clone, Copy, Default)]
 pub struct CellLoad {
     pub bound: [u64; MAX_SPECIES],
     pub internalised: [u64; MAX_SPECIES],
+    pub held: [u64; MAX_SPECIES],
+    /// Simulated time of the cell's last kinetics update, s.
+    pub updated_at: f64,
 }
 
 /// Voxel-to-cell lookup: the entity occupying each voxel, if any.
@@ -115,13 +129,19 @@ pub fn place_cells(world: &mut World, lattice: &Lattice, regions: &Regions, p: &
     for (idx, &r) in regions.region.data.iter().enumerate() {
         let mut s = stream(seed, Domain::Tissue, idx as u64, 0);
         if s.chance(p.occupancy[r as usize]) {
-            let kind = if r == TUMOUR { CellKind::Cancer } else { CellKind::Host };
-            let receptors = p.receptors[r as usize];
-            batch.push((
-                Cell { kind, voxel: idx as u32 },
-                Receptors { total: receptors, free: receptors },
-                CellLoad::default(),
-            ));
+            let kind = if r != TUMOUR {
+                CellKind::Host
+            } else if s.chance(p.tumour_phagocyte_fraction) {
+                CellKind::Phagocyte
+            } else {
+                CellKind::Cancer
+            };
+            let receptors = match kind {
+                CellKind::Cancer => p.receptors[1],
+                CellKind::Host => p.receptors[0],
+                _ => 0.0,
+            };
+            batch.push((Cell { kind, voxel: idx as u32 }, Receptors::new(receptors), CellLoad::default()));
         }
     }
     let voxels: Vec<u32> = batch.iter().map(|b| b.0.voxel).collect();

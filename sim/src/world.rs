@@ -125,6 +125,7 @@ impl Simulation {
         world.insert_resource(params.matrix.clone());
         world.insert_resource(params.output.clone());
         world.insert_resource(Seed(params.run.seed));
+        init_task_pool();
         world.insert_resource(Faults::default());
         world.insert_resource(Clock {
             time: 0.0,
@@ -136,6 +137,8 @@ impl Simulation {
         });
 
         let mut schedule = Schedule::new(Step);
+        // Processes run one after another in the order of the physics; each parallelises inside.
+        schedule.set_executor(bevy_ecs::schedule::SingleThreadedExecutor::new());
         schedule.configure_sets(
             (
                 Phase::Blood,
@@ -218,4 +221,12 @@ pub fn advance_clock(mut clock: ResMut<Clock>) {
     if (clock.time - clock.end).abs() <= 1e-9 * clock.end.max(1.0) {
         clock.time = clock.end;
     }
+}
+
+/// Starts the ECS compute pool with as many threads as rayon's pool, once per process.
+/// Per-entity work is written so that results do not depend on the thread count.
+pub fn init_task_pool() {
+    bevy_tasks::ComputeTaskPool::get_or_init(|| {
+        bevy_tasks::TaskPoolBuilder::new().num_threads(rayon::current_num_threads()).build()
+    });
 }

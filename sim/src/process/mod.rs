@@ -1,8 +1,11 @@
 //! The processes of a step, one module each. [`install`] adds each process's resources and
 //! systems to the world and schedule, in its [`crate::world::Phase`].
 
+pub mod accounting;
+pub mod binding;
 pub mod output;
 pub mod pressure;
+pub mod transport;
 
 use bevy_ecs::prelude::*;
 
@@ -13,5 +16,9 @@ use crate::params::Params;
 pub fn install(world: &mut World, schedule: &mut Schedule, params: &Params) -> SimResult<()> {
     output::install(world, schedule, params);
     pressure::install(world, schedule, params)?;
+    world.insert_resource(params.designs.clone());
+    accounting::install(world);
+    transport::install(world, schedule, params);
+    binding::install(world, schedule, params);
     Ok(())
 }

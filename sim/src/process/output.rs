@@ -216,12 +216,20 @@ pub fn write_snapshot(world: &mut World) -> SimResult<()> {
     Ok(())
 }
 
-/// Writes a snapshot when its time has come (and at the end of the run).
+/// Writes a snapshot when its time has come (and at the end of the run). A simulation stepped
+/// without a run file (tests, embedding) writes nothing.
 pub fn snapshot_when_due(world: &mut World) {
     let due = {
         let c = world.resource::<Clock>();
         c.time >= c.next_snapshot || c.done()
     };
+    if due && world.resource::<OutputFile>().0.is_none() {
+        let interval = world.resource::<crate::params::RunParams>().snapshot_interval;
+        let mut c = world.resource_mut::<Clock>();
+        c.snapshots += 1;
+        c.next_snapshot = (c.snapshots as f64 * interval).min(c.end);
+        return;
+    }
     if due && let Err(e) = write_snapshot(world) {
         world.resource_mut::<Faults>().0.push(e);
     }

@@ -7,7 +7,8 @@
 //! with the Darcy flux `q = -K grad p` (m/s) and the interstitial velocity `q / porosity`.
 //!
 //! - `K` per voxel: from the matrix ([`matrix_conductivity`]: Jackson and James 1986 for each fibre
-//!   network, the two networks' Darcy resistivities added) or per region from `[fluid]`.
+//!   network, the two networks' Darcy resistivities added) or per region from `[fluid]`; a
+//!   matrix without fibres (infinite `K`) is refused.
 //! - Vessel terms per voxel from the [`WallFluid`] resource, whichever vessel model made it
 //!   (`lp_s = sum Lp S`, `drive = sum Lp S (p_v - sigma_T (pi_v - pi_i))`): the source of voxel
 //!   `v` is `drive(v) - lp_s(v) p(v)`.
@@ -24,8 +25,10 @@
 //! wall coefficients, the matrix or the lymphatics change.
 //!
 //! Outputs: the [`InterstitialFluid`] fields (pressure, velocity, conductivity, drainage), the
-//! [`DarcyFlux`] through every voxel face for particle transport, and the fluid balance per
-//! snapshot: vessel leakage = lymphatic drainage + boundary outflow, with its relative error.
+//! [`DarcyFlux`] through every voxel face, the transport's [`FaceVelocity`] (flux density over
+//! the face porosity, the mean of the two voxels' porosities; the voxel's own on a boundary face),
+//! and the fluid balance per snapshot: vessel leakage = lymphatic drainage + boundary outflow,
+//! with its relative error.
 
 use bevy_ecs::change_detection::Tick;
 use bevy_ecs::prelude::*;
@@ -35,37 +38,23 @@ use crate::field::{Field, FieldRef};
 use crate::io::SnapshotWriter;
 use crate::lattice::{Face, Lattice};
 use crate::params::{FluidParams, LymphaticParams, Params, TumourGeometry};
+use crate::particles::hindrance::{jackson_james, mixed_permeability};
 use crate::process::output;
+use crate::process::transport::FaceVelocity;
 use crate::scenario::{ConductivityModel, FluidBoundary, LymphaticCollapse, VesselModel};
 use crate::solver::{Boundary, SolveError, SolveReport, Solver, SolverOptions, Stencil7, Wall};
 use crate::tissue::{Matrix, Occupancy, Regions, TUMOUR};
 use crate::vascular::WallFluid;
 use crate::world::{Clock, Faults, Phase};
 
-/// Constant of the Jackson and James 1986 relation.
-const JJ_CONSTANT: f64 = 0.931;
-
-/// Darcy permeability (m^2) of a random network of fibres of radius `radius` (m) at volume
-/// fraction `phi`: `kappa = radius^2 * 3 / (20 phi) * (-ln phi - 0.931)` (Jackson and James 1986,
-/// Can J Chem Eng 64:364). Infinite for `phi = 0` (no fibres, no resistance). The relation is
-/// meant for dilute networks: it is positive below `phi = exp(-0.931) = 0.394`, and the scenario
-/// caps fractions at 0.3.
-pub fn jackson_james_permeability(phi: f64, radius: f64) -> f64 {
-    if phi <= 0.0 {
-        return f64::INFINITY;
-    }
-    radius * radius * 3.0 / (20.0 * phi) * (-phi.ln() - JJ_CONSTANT)
-}
-
 /// Hydraulic conductivity `K = kappa / mu` (m^2/(Pa s)) of a matrix of collagen and
-/// glycosaminoglycan fibres. Our choice of mixing rule: the two networks share the flow path, so
-/// their Darcy resistivities `1 / kappa` add (each from [`jackson_james_permeability`] at its own
-/// fraction). Levick 1987 (Q J Exp Physiol 72:409) found that neither class of fibre alone
-/// accounts for the conductivity of most tissues, which rather comes from their combined effect.
+/// glycosaminoglycan fibres: each network's Darcy permeability from Jackson and James 1986 (Can J
+/// Chem Eng 64:364, [`jackson_james`]), the two networks' resistivities `1 / kappa` added
+/// ([`mixed_permeability`]; the same rule the particle hindrance uses). Levick 1987 (Q J Exp
+/// Physiol 72:409) found that neither class of fibre alone accounts for the conductivity of most
+/// tissues, which rather comes from their combined effect.
 pub fn matrix_conductivity(collagen: f64, gag: f64, collagen_radius: f64, gag_radius: f64, viscosity: f64) -> f64 {
-    let resistivity =
-        1.0 / jackson_james_permeability(collagen, collagen_radius) + 1.0 / jackson_james_permeability(gag, gag_radius);
-    1.0 / (resistivity * viscosity)
+    mixed_permeability(jackson_james(collagen_radius, collagen), jackson_james(gag_radius, gag)) / viscosity
 }
 
 /// Lymphatic drainage per voxel.
@@ -448,6 +437,7 @@ pub fn install(world: &mut World, schedule: &mut Schedule, params: &Params) -> S
         balance: FluidBalance::default(),
     });
     world.insert_resource(DarcyFlux::zeros(lattice.n, lattice.h));
+    world.insert_resource(FaceVelocity::zero(&lattice));
     if world.get_resource::<WallFluid>().is_some() {
         solve_now(world)?;
     }
@@ -581,11 +571,44 @@ pub fn solve_now(world: &mut World) -> SimResult<()> {
         }
         fluid.balance =
             balance(world.resource::<WallFluid>(), world.resource::<Lymphatics>(), l.voxel_volume(), &state.system, p);
+        let mut fv = world.remove_resource::<FaceVelocity>().unwrap_or_else(|| FaceVelocity::zero(&l));
+        face_velocity(&l, world.resource::<DarcyFlux>(), &world.resource::<Matrix>().porosity.data, &mut fv);
+        world.insert_resource(fv);
     }
     state.seen = ticks;
     world.insert_resource(fluid);
     world.insert_resource(state);
     Ok(())
+}
+
+/// Interstitial velocity on the voxel faces, m/s: the flux density over the face porosity (the
+/// mean of the two voxels' porosities; the voxel's own on a boundary face).
+pub fn face_velocity(l: &Lattice, flux: &DarcyFlux, porosity: &[f64], out: &mut FaceVelocity) {
+    let area = l.h * l.h;
+    for (a, arr) in [&mut out.x, &mut out.y, &mut out.z].into_iter().enumerate() {
+        let mut m = l.n;
+        m[a] += 1;
+        for k in 0..m[2] {
+            for j in 0..m[1] {
+                for i in 0..m[0] {
+                    let f = [i, j, k];
+                    let c = f[a];
+                    let mut lo = f;
+                    let phi = if c == 0 {
+                        porosity[l.idx(i, j, k)]
+                    } else if c == l.n[a] {
+                        lo[a] -= 1;
+                        porosity[l.idx(lo[0], lo[1], lo[2])]
+                    } else {
+                        lo[a] -= 1;
+                        0.5 * (porosity[l.idx(lo[0], lo[1], lo[2])] + porosity[l.idx(i, j, k)])
+                    };
+                    let idx = flux.index(a, f);
+                    arr[idx] = flux.axis(a)[idx] / area / phi;
+                }
+            }
+        }
+    }
 }
 
 /// The fluid balance of pressure field `p` (sums in voxel order).

@@ -8,6 +8,7 @@
 mod sections;
 pub mod spans;
 pub mod spec;
+mod transport_sections;
 
 use std::fmt;
 use std::path::{Path, PathBuf};
@@ -15,6 +16,7 @@ use std::path::{Path, PathBuf};
 pub use sections::*;
 use spans::SpanIndex;
 pub use spec::{Check, KeySpec, Problem, Section, SectionDoc};
+pub use transport_sections::*;
 
 /// Why a scenario could not be used.
 #[derive(Debug, Clone, thiserror::Error)]

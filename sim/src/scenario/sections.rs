@@ -268,6 +268,8 @@ section! {
         dose_particles: f64 = 1.0e13, Check::closed(0.0, 1.0e20);
         /// Particles carried by one packet in the tissue.
         packet_particles: f64 = 1.0e4, Check::closed(1.0, 1.0e15);
+        /// Factor on the particle's advection by interstitial flow (1: it moves with the fluid).
+        convective_hindrance: f64 = 1.0, Check::closed(0.0, 1.0);
         /// Targeting ligand; absent for an untargeted design.
         ligand: Option<LigandSection> = None;
     }
@@ -280,6 +282,8 @@ section! {
         tumour_cell_fraction: f64 = 0.9, Check::fraction();
         /// Probability that a host voxel holds a host cell.
         host_cell_fraction: f64 = 0.6, Check::fraction();
+        /// Fraction of tumour cells that are phagocytes (tumour-associated macrophages).
+        tumour_phagocyte_fraction: f64 = 0.05, Check::fraction();
         /// Target receptors on each cancer cell.
         cancer_receptors_per_cell: f64 = 1.0e5, Check::closed(0.0, 1.0e8);
         /// Target receptors on each host cell.
@@ -327,6 +331,9 @@ pub struct Scenario {
     pub vessels: VesselsSection,
     pub fluid: FluidSection,
     pub lymphatics: LymphaticsSection,
+    pub transport: super::TransportSection,
+    pub binding: super::BindingSection,
+    pub uptake: super::UptakeSection,
     /// Particle designs, one `[[particle]]` table each.
     pub particle: Vec<ParticleSection>,
     pub output: OutputSection,
@@ -346,6 +353,9 @@ impl Scenario {
             SectionDoc::of::<ContinuumVesselsSection>("vessels.continuum"),
             SectionDoc::of::<FluidSection>("fluid"),
             SectionDoc::of::<LymphaticsSection>("lymphatics"),
+            SectionDoc::of::<super::TransportSection>("transport"),
+            SectionDoc::of::<super::BindingSection>("binding"),
+            SectionDoc::of::<super::UptakeSection>("uptake"),
             SectionDoc::of::<ParticleSection>("[[particle]]"),
             SectionDoc::of::<LigandSection>("particle.ligand"),
             SectionDoc::of::<OutputSection>("output"),
@@ -364,6 +374,9 @@ impl Scenario {
         self.vessels.check_into("vessels", None, &mut out);
         self.fluid.check_into("fluid", None, &mut out);
         self.lymphatics.check_into("lymphatics", None, &mut out);
+        self.transport.check_into("transport", None, &mut out);
+        self.binding.check_into("binding", None, &mut out);
+        self.uptake.check_into("uptake", None, &mut out);
         self.particle.check_into("particle", None, &mut out);
         self.output.check_into("output", None, &mut out);
         if !out.is_empty() {

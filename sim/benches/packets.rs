@@ -1,0 +1,126 @@
+//! Packet transport with binding on a heterogeneous 128^3 lattice: packet-steps per second and
+//! memory per packet, at 1e5, 1e6 and 1e7 packets. Prints `name value unit` lines.
+//! Usage: cargo bench --bench packets [-- N ...]   (default: 1e5 1e6 1e7)
+
+use std::path::Path;
+use std::time::Instant;
+
+use interstice_sim::particles::Packets;
+use interstice_sim::process::accounting::Ledger;
+use interstice_sim::{LoadedScenario, Simulation};
+
+fn peak_rss_bytes() -> f64 {
+    std::fs::read_to_string("/proc/self/status")
+        .ok()
+        .and_then(|s| s.lines().find(|l| l.starts_with("VmHWM:")).map(|l| l.to_string()))
+        .and_then(|l| l.split_whitespace().nth(1).and_then(|v| v.parse::<f64>().ok()))
+        .map_or(f64::NAN, |kb| kb * 1024.0)
+}
+
+fn current_rss_bytes() -> f64 {
+    std::fs::read_to_string("/proc/self/status")
+        .ok()
+        .and_then(|s| s.lines().find(|l| l.starts_with("VmRSS:")).map(|l| l.to_string()))
+        .and_then(|l| l.split_whitespace().nth(1).and_then(|v| v.parse::<f64>().ok()))
+        .map_or(f64::NAN, |kb| kb * 1024.0)
+}
+
+const SCENARIO: &str = r#"
+[run]
+name = "bench"
+end_time_h = 1000.0
+time_step_s = 20.0
+snapshot_interval_h = 1000.0
+[lattice]
+shape = [128, 128, 128]
+voxel_um = 20.0
+[tumour]
+radius_um = 900.0
+[[particle]]
+name = "np50"
+hydrodynamic_radius_nm = 50.0
+surface_potential_mV = -10.0
+packet_particles = 1000.0
+[particle.ligand]
+kon_per_M_s = 1e5
+koff_per_s = 1e-4
+valency = 2
+"#;
+
+fn main() {
+    let args: Vec<usize> = std::env::args().skip(1).filter_map(|a| a.parse::<f64>().ok()).map(|v| v as usize).collect();
+    let sizes = if args.is_empty() { vec![100_000, 1_000_000, 10_000_000] } else { args };
+    let loaded = LoadedScenario::from_text(Path::new("bench.toml"), SCENARIO.to_string()).expect("scenario");
+    let mut sim = Simulation::new(&loaded).expect("world");
+    let l = sim.lattice().clone();
+    sim.step().expect("first step");
+    for &n in &sizes {
+        let before = current_rss_bytes();
+        {
+            let mut r = interstice_sim::rng::stream(1, interstice_sim::rng::Domain::Tissue, 77, n as u64);
+            let ext = l.extent();
+            let mut p = Packets::default();
+            for _ in 0..n {
+                p.push(&l, [r.uniform() * ext[0], r.uniform() * ext[1], r.uniform() * ext[2]], 0, 1000);
+            }
+            p.sort_morton(&l);
+            sim.world.insert_resource(p);
+            let mut ledger = sim.world.resource_mut::<Ledger>();
+            ledger.injected[0] = n as u64 * 1000;
+        }
+        let after = current_rss_bytes();
+        let steps = std::env::var("BENCH_STEPS").ok().and_then(|s| s.parse().ok()).unwrap_or(if n >= 10_000_000 {
+            3
+        } else if n >= 1_000_000 {
+            10
+        } else {
+            40
+        });
+        // One step to settle buffers, then timed steps.
+        sim.step().expect("step");
+        let t0 = Instant::now();
+        for _ in 0..steps {
+            sim.step().expect("step");
+        }
+        let dt = t0.elapsed().as_secs_f64();
+        let moved = sim.world.resource::<Packets>().len();
+        // The motion kernel alone, on the same packets and fields.
+        {
+            use interstice_sim::process::transport::{
+                Drift, FaceVelocity, MotionFields, TransportParams, move_packets,
+            };
+            let fields = sim.world.resource::<MotionFields>().clone();
+            let vel = sim.world.resource::<FaceVelocity>().clone();
+            let tp = sim.world.resource::<TransportParams>().clone();
+            let mut p = sim.world.resource::<Packets>().clone();
+            let t1 = Instant::now();
+            for k in 0..steps {
+                move_packets(&l, &fields, &vel, &tp, &mut p, 1, k as u64, 20.0, Drift::Ito);
+            }
+            let d1 = t1.elapsed().as_secs_f64();
+            println!("packet_motion_steps_per_s_{:.0e} {:.3e} 1/s", n as f64, (p.len() * steps) as f64 / d1);
+            if std::env::var("BENCH_SMALL").is_ok() {
+                let small = interstice_sim::lattice::Lattice::new([16, 16, 16], l.h * 8.0, l.origin);
+                let f2 = MotionFields::uniform(&small, 1e-13, 0.4);
+                let v2 = FaceVelocity::zero(&small);
+                let mut p2 = Packets::default();
+                for i in 0..p.len() {
+                    p2.push(&small, p.pos[i], 0, 1000);
+                }
+                let t2 = Instant::now();
+                for k in 0..steps {
+                    move_packets(&small, &f2, &v2, &tp, &mut p2, 1, k as u64, 20.0, Drift::Ito);
+                }
+                println!(
+                    "packet_motion_small_lattice_{:.0e} {:.3e} 1/s",
+                    n as f64,
+                    (p2.len() * steps) as f64 / t2.elapsed().as_secs_f64()
+                );
+            }
+        }
+        let label = format!("{:.0e}", n as f64).replace("e", "e");
+        println!("packet_steps_per_s_{label} {:.3e} 1/s", (moved as f64 * steps as f64) / dt);
+        println!("packet_memory_per_packet_{label} {:.1} B", (after - before) / n as f64);
+        println!("packet_peak_rss_{label} {:.1} MB", peak_rss_bytes() / 1e6);
+    }
+}

@@ -1,0 +1,156 @@
+//! Free particle packets: a contiguous table (structure of arrays), kept in Morton order.
+//!
+//! A packet carries a known whole number of particles of one species at a continuous position.
+//! Only free (mobile) particles travel as packets: particles bound to a cell or internalised
+//! are held by the cell ([`crate::tissue::CellLoad`]), those adsorbed to the matrix by the
+//! voxel ([`crate::process::binding::MatrixLoad`]), so each bound or internalised amount refers
+//! to its cell. Packets are not ECS entities because the transport kernel streams over millions
+//! of them every step: as plain arrays sorted by voxel they stay in cache and in SIMD-friendly
+//! order, and removal and creation cost no archetype moves.
+
+use bevy_ecs::prelude::Resource;
+use rayon::prelude::*;
+
+use crate::lattice::{Lattice, morton};
+
+/// The free packets of every species.
+#[derive(Resource, Debug, Default, Clone)]
+pub struct Packets {
+    /// Unique id of each packet, from which its random streams derive.
+    pub id: Vec<u64>,
+    /// Position, m.
+    pub pos: Vec<[f64; 3]>,
+    /// Linear index of the voxel holding `pos`.
+    pub voxel: Vec<u32>,
+    /// Species index.
+    pub species: Vec<u8>,
+    /// Particles in the packet (0 marks a packet to be removed).
+    pub weight: Vec<u64>,
+    /// Next id to hand out.
+    pub next_id: u64,
+    scratch_keys: Vec<(u64, u64, u32)>,
+    scratch_pos: Vec<[f64; 3]>,
+    scratch_u32: Vec<u32>,
+    scratch_u64: Vec<u64>,
+    scratch_u8: Vec<u8>,
+}
+
+impl Packets {
+    /// Number of packets.
+    pub fn len(&self) -> usize {
+        self.id.len()
+    }
+
+    /// Whether there are none.
+    pub fn is_empty(&self) -> bool {
+        self.id.is_empty()
+    }
+
+    /// Adds a packet; returns its id.
+    pub fn push(&mut self, lattice: &Lattice, pos: [f64; 3], species: u8, weight: u64) -> u64 {
+        let v = lattice.voxel_of(pos).expect("packet inside the lattice");
+        let id = self.next_id;
+        self.next_id += 1;
+        self.id.push(id);
+        self.pos.push(pos);
+        self.voxel.push(lattice.idx(v[0], v[1], v[2]) as u32);
+        self.species.push(species);
+        self.weight.push(weight);
+        id
+    }
+
+    /// Removes the packets of weight zero, keeping the order of the others.
+    pub fn compact(&mut self) {
+        if !self.weight.contains(&0) {
+            return;
+        }
+        let mut w = 0;
+        for r in 0..self.len() {
+            if self.weight[r] > 0 {
+                if w != r {
+                    self.id[w] = self.id[r];
+                    self.pos[w] = self.pos[r];
+                    self.voxel[w] = self.voxel[r];
+                    self.species[w] = self.species[r];
+                    self.weight[w] = self.weight[r];
+                }
+                w += 1;
+            }
+        }
+        self.id.truncate(w);
+        self.pos.truncate(w);
+        self.voxel.truncate(w);
+        self.species.truncate(w);
+        self.weight.truncate(w);
+    }
+
+    /// Sorts the packets by the Morton code of their voxel, then by id: a total order, so the
+    /// result does not depend on the sort's parallelism. Scratch space is kept between calls.
+    pub fn sort_morton(&mut self, lattice: &Lattice) {
+        let n = self.len();
+        self.scratch_keys.clear();
+        self.scratch_keys.extend((0..n).map(|i| (0u64, self.id[i], i as u32)));
+        let voxel = &self.voxel;
+        self.scratch_keys.par_iter_mut().for_each(|k| k.0 = morton(lattice.ijk(voxel[k.2 as usize] as usize)));
+        self.scratch_keys.par_sort_unstable();
+        macro_rules! permute {
+            ($field:ident, $scratch:ident) => {{
+                self.$scratch.clear();
+                self.$scratch.extend(self.scratch_keys.iter().map(|k| self.$field[k.2 as usize]));
+                std::mem::swap(&mut self.$field, &mut self.$scratch);
+            }};
+        }
+        permute!(pos, scratch_pos);
+        permute!(voxel, scratch_u32);
+        permute!(weight, scratch_u64);
+        permute!(species, scratch_u8);
+        self.scratch_u64.clear();
+        self.scratch_u64.extend(self.scratch_keys.iter().map(|k| self.id[k.2 as usize]));
+        std::mem::swap(&mut self.id, &mut self.scratch_u64);
+    }
+
+    /// Total particles of species `s` in packets.
+    pub fn particles(&self, s: usize) -> u64 {
+        self.species.iter().zip(&self.weight).filter(|(sp, _)| **sp as usize == s).map(|(_, w)| *w).sum()
+    }
+
+    /// Particles of species `s` per voxel, added into `out` (length = voxels).
+    pub fn deposit(&self, s: usize, out: &mut [f64]) {
+        for i in 0..self.len() {
+            if self.species[i] as usize == s {
+                out[self.voxel[i] as usize] += self.weight[i] as f64;
+            }
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn compact_and_sort_keep_every_packet_once() {
+        let l = Lattice::new([8, 8, 8], 1.0, [0.0; 3]);
+        let mut p = Packets::default();
+        for i in 0..200u64 {
+            let x = [(i * 37 % 8) as f64 + 0.5, (i * 11 % 8) as f64 + 0.5, (i * 5 % 8) as f64 + 0.5];
+            p.push(&l, x, (i % 3) as u8, i % 7);
+        }
+        let total: u64 = p.weight.iter().sum();
+        p.compact();
+        assert!(p.weight.iter().all(|&w| w > 0));
+        assert_eq!(p.weight.iter().sum::<u64>(), total);
+        p.sort_morton(&l);
+        let codes: Vec<u64> = p.voxel.iter().map(|&v| morton(l.ijk(v as usize))).collect();
+        assert!(codes.windows(2).all(|w| w[0] <= w[1]));
+        // Every packet kept its own position and voxel.
+        for i in 0..p.len() {
+            let v = l.voxel_of(p.pos[i]).unwrap();
+            assert_eq!(l.idx(v[0], v[1], v[2]) as u32, p.voxel[i]);
+        }
+        let mut ids = p.id.clone();
+        ids.sort_unstable();
+        ids.dedup();
+        assert_eq!(ids.len(), p.len());
+    }
+}

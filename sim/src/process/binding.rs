@@ -1,0 +1,613 @@
+//! Binding and uptake: receptor binding on cells, internalisation, receptor recycling,
+//! non-specific adsorption to the matrix, phagocytic uptake and lymphatic drainage.
+//!
+//! Receptor binding follows the mass-action law
+//! `dB/dt = kon C (R - B) - koff_eff B - kint B`, `dI/dt = kint B`
+//! (the receptor binding model of the binding-site barrier: Fujimori, Covell, Fletcher and
+//! Weinstein 1990, J Nucl Med 31:1191; its dimensionless analysis: Thurber, Schmidt and Wittrup
+//! 2008, Adv Drug Deliv Rev 60:1421), whose equilibrium without internalisation is the Langmuir
+//! isotherm `B/R = C/(KD + C)`, `KD = koff/kon`. Rates are per particle: a free particle in a voxel
+//! whose cell carries `R_free` free receptors binds at `valency kon R_free / V_acc` (`V_acc`: the
+//! fluid volume it can reach in the voxel). A bound particle of valency `n` leaves only when all
+//! its bonds are open; with each further bond re-forming against the effective receptor
+//! concentration `C_eff = (receptors per cell area) / (ligand reach)`, the effective
+//! dissociation rate is `koff (KD / (KD + C_eff))^(n-1)` (the avidity of multivalent binding,
+//! Mammen, Choi and Whitesides 1998, Angew Chem Int Ed 37:2754; this closed form is the
+//! model's choice). Each bound particle occupies `n` receptors; internalised particles take
+//! their receptors with them, and the surface recovers at the recycling rate.
+//!
+//! Adsorption to the matrix: rate `k_ads |zeta| (phi / phi_ref)`, times a factor for positive
+//! particles (the matrix is negatively charged); desorption at a constant rate. Phagocytes take up
+//! the free particles of their voxel at a rate rising with size (linear in radius, 1 at 50 nm)
+//! and with positive charge and lowered by a stealth coating (orders of magnitude as in the
+//! common-practice rules of particle clearance; the model's choice of form). Lymphatics drain
+//! the free particles of a voxel with its lymph flow: rate `Q_L / V_acc`.
+//!
+//! Transitions use the exact probability `1 - exp(-k dt)` for each particle, drawn for a packet of
+//! `w` particles as a binomial count, and split between competing channels by conditional
+//! binomials. Particles detached from a cell or the matrix are held at their voxel (and can
+//! rebind there) until a packet's worth has gathered, then leave as a new packet.
+
+use std::sync::Mutex;
+use std::sync::atomic::{AtomicU64, Ordering};
+
+use bevy_ecs::entity::EntityIndexSet;
+use bevy_ecs::prelude::*;
+use rayon::prelude::*;
+
+use crate::lattice::Lattice;
+use crate::params::Params;
+use crate::particles::{Designs, Packets};
+use crate::process::accounting::Ledger;
+use crate::process::transport::MotionFields;
+use crate::rng::{Domain, Stream, stream};
+use crate::scenario::{Coating, ReceptorTarget};
+use crate::tissue::{Cell, CellKind, CellLoad, MAX_SPECIES, Matrix, Occupancy, Receptors};
+use crate::world::{Clock, Phase, Seed};
+
+/// Parameters of binding and uptake (SI).
+#[derive(Resource, Debug, Clone, PartialEq)]
+pub struct BindingParams {
+    /// Receptor recycling rate, 1/s.
+    pub receptor_recycling: f64,
+    /// Surface area of a cell, m^2.
+    pub cell_area: f64,
+    /// Ligand reach, m.
+    pub ligand_reach: f64,
+    /// Adsorption rate per volt of surface potential at the reference matrix fraction, 1/(s V).
+    pub adsorption_per_volt: f64,
+    /// Factor on adsorption of positive particles.
+    pub cationic_factor: f64,
+    /// Matrix fraction of the reference rate.
+    pub matrix_reference_fraction: f64,
+    /// Desorption rate, 1/s.
+    pub desorption: f64,
+    /// Phagocyte uptake rate of a 100 nm neutral uncoated particle, 1/s.
+    pub phagocyte_uptake: f64,
+    /// Factor on uptake for a stealth coating.
+    pub stealth_uptake_factor: f64,
+    /// Potential that doubles uptake of positive particles, V.
+    pub uptake_charge_scale: f64,
+}
+
+/// Rate constants of each species derived from its design.
+#[derive(Resource, Debug, Clone, Default)]
+pub struct Kinetics {
+    pub species: Vec<SpeciesKinetics>,
+}
+
+/// Rate constants of one species.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct SpeciesKinetics {
+    /// Which cells carry its receptor (`None`: untargeted).
+    pub target: Option<CellKind>,
+    /// `valency kon`, m^3/s: binding rate per free receptor per particle per unit accessible volume.
+    pub kon_eff: f64,
+    /// Effective dissociation rate by a cell of receptor density `receptors / cell area`, 1/s, for
+    /// a cell of the target's nominal receptor count.
+    pub koff: f64,
+    /// Single-bond dissociation and association constants for the avidity rule.
+    pub koff_single: f64,
+    pub kon_single: f64,
+    /// Bonds per bound particle.
+    pub valency: u32,
+    /// Internalisation rate, 1/s.
+    pub kint: f64,
+    /// Adsorption rate at the reference matrix fraction, 1/s.
+    pub adsorption: f64,
+    /// Phagocytic uptake rate, 1/s.
+    pub phagocytosis: f64,
+    /// Particles per packet.
+    pub packet: u64,
+}
+
+impl SpeciesKinetics {
+    /// Effective dissociation rate for a cell with `receptors` receptors on area `area` (m^2).
+    pub fn koff_eff(&self, receptors: f64, area: f64, reach: f64) -> f64 {
+        if self.valency <= 1 || self.kon_single <= 0.0 {
+            return self.koff_single;
+        }
+        let kd = self.koff_single / self.kon_single; // particles per m^3
+        let c_eff = receptors / area / reach;
+        self.koff_single * (kd / (kd + c_eff)).powi(self.valency as i32 - 1)
+    }
+}
+
+impl Kinetics {
+    /// Rate constants of every design.
+    pub fn build(designs: &Designs, p: &BindingParams) -> Self {
+        let species = designs
+            .0
+            .iter()
+            .map(|d| {
+                let (target, kon_single, koff_single, valency, kint) = match &d.ligand {
+                    Some(l) => (
+                        Some(match l.target {
+                            ReceptorTarget::Cancer => CellKind::Cancer,
+                            ReceptorTarget::Host => CellKind::Host,
+                        }),
+                        l.kon,
+                        l.koff,
+                        l.valency,
+                        l.kint,
+                    ),
+                    None => (None, 0.0, 0.0, 1, 0.0),
+                };
+                let charge = d.potential.abs() * if d.potential > 0.0 { p.cationic_factor } else { 1.0 };
+                let stealth = if d.coating == Coating::Stealth { p.stealth_uptake_factor } else { 1.0 };
+                let charge_up = 1.0 + (d.potential.max(0.0) / p.uptake_charge_scale);
+                SpeciesKinetics {
+                    target,
+                    kon_eff: kon_single * valency as f64,
+                    koff: koff_single,
+                    koff_single,
+                    kon_single,
+                    valency,
+                    kint,
+                    adsorption: p.adsorption_per_volt * charge,
+                    phagocytosis: p.phagocyte_uptake * (d.radius / 50e-9) * charge_up * stealth,
+                    packet: d.packet,
+                }
+            })
+            .collect();
+        Kinetics { species }
+    }
+}
+
+/// What each voxel offers a free particle: its cell's kind and free receptors. Kept current by
+/// the systems that change receptors (each cell writes only its own voxel, so the stores are
+/// plain relaxed atomics, the same for any thread count).
+#[derive(Resource, Debug)]
+pub struct CellSites {
+    /// Cell kind code (`CellKind as u8`), or `NO_CELL`.
+    pub kind: Vec<u8>,
+    /// Free receptors of the voxel's cell (`f64` bits).
+    free: Vec<AtomicU64>,
+}
+
+/// Marks a voxel without a cell in [`CellSites::kind`].
+pub const NO_CELL: u8 = u8::MAX;
+
+impl CellSites {
+    /// Empty sites for a lattice.
+    pub fn new(n: usize) -> Self {
+        CellSites { kind: vec![NO_CELL; n], free: (0..n).map(|_| AtomicU64::new(0f64.to_bits())).collect() }
+    }
+
+    /// Free receptors at voxel `v`.
+    #[inline]
+    pub fn free(&self, v: usize) -> f64 {
+        f64::from_bits(self.free[v].load(Ordering::Relaxed))
+    }
+
+    /// Records the free receptors of the cell at voxel `v`.
+    #[inline]
+    pub fn set_free(&self, v: usize, x: f64) {
+        self.free[v].store(x.to_bits(), Ordering::Relaxed);
+    }
+
+    /// Rebuilds every site from the cells (at the start, and after cells appear, move or die).
+    pub fn rebuild<'a>(&mut self, cells: impl Iterator<Item = (&'a Cell, &'a Receptors)>) {
+        self.kind.iter_mut().for_each(|k| *k = NO_CELL);
+        for (c, r) in cells {
+            self.kind[c.voxel as usize] = c.kind as u8;
+            self.set_free(c.voxel as usize, r.free);
+        }
+    }
+}
+
+/// Steps between updates of a cell's own kinetics (unbinding, internalisation, recycling), with
+/// the cells staggered over the interval. Chosen so that the fastest of those first-order rates
+/// moves at most 1 % of a cell's bound particles per update: each update applies the exact
+/// transition probabilities over its whole interval, so only the coupling to binding lags.
+#[derive(Resource, Debug, Clone, Copy, PartialEq, Eq)]
+pub struct CellInterval(pub u64);
+
+/// Cells that hold particles or are recovering receptors: the only ones whose own kinetics need
+/// updating. A cell joins when a particle first binds to it or is taken up by it.
+#[derive(Resource, Debug, Default)]
+pub struct ActiveCells(pub EntityIndexSet);
+
+/// Particles gathered at a voxel and ready to leave as a packet: (voxel, species, particles).
+#[derive(Resource, Debug, Default)]
+pub struct Releases(pub Mutex<Vec<(u32, u8, u64, u64)>>);
+
+/// Lymph flow leaving the interstitium of each voxel, m^3/s (zero where lymphatics do not work).
+#[derive(Resource, Debug, Clone)]
+pub struct LymphFlow(pub Vec<f64>);
+
+/// Particles adsorbed to the matrix of each voxel, and those desorbed but not yet gathered into
+/// a packet, per species.
+#[derive(Resource, Debug, Clone, Default)]
+pub struct MatrixLoad {
+    pub bound: Vec<Vec<u64>>,
+    pub held: Vec<Vec<u64>>,
+}
+
+/// A reaction of a free packet that touches shared state, applied after the parallel pass.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord)]
+struct Event {
+    voxel: u32,
+    id: u64,
+    index: u32,
+    species: u8,
+    kind: EventKind,
+    count: u64,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord)]
+enum EventKind {
+    /// A request to bind `count` particles to the voxel's cell (capped by its receptors).
+    Bind,
+    /// `count` particles taken up by the voxel's phagocyte.
+    Phagocytosis,
+    /// `count` particles adsorbed to the voxel's matrix.
+    Adsorption,
+}
+
+/// Per-chunk event buffers, kept between steps.
+#[derive(Resource, Default)]
+pub struct EventBuffers {
+    chunks: Vec<Vec<Event>>,
+    merged: Vec<Event>,
+}
+
+const CHUNK: usize = 2048;
+
+/// Draws a binomial split of `n` among rates `k` (sum `total`), in order.
+#[inline]
+fn split(rng: &mut Stream, mut n: u64, k: &[f64], mut total: f64, out: &mut [u64]) {
+    for (c, &kc) in k.iter().enumerate() {
+        if n == 0 || total <= 0.0 {
+            out[c] = 0;
+            continue;
+        }
+        let take = if c + 1 == k.len() { n } else { rng.binomial(n, (kc / total).min(1.0)) };
+        out[c] = take;
+        n -= take;
+        total -= kc;
+    }
+}
+
+/// One parallel pass over the free packets: drainage is applied at once (booked in the
+/// returned counts); binding, phagocytosis and adsorption become events.
+#[allow(clippy::too_many_arguments)]
+fn react_packets(
+    l: &Lattice,
+    kin: &Kinetics,
+    sites: &CellSites,
+    motion: &MotionFields,
+    matrix: &Matrix,
+    p: &BindingParams,
+    lymph: &LymphFlow,
+    packets: &mut Packets,
+    bufs: &mut EventBuffers,
+    seed: u64,
+    step: u64,
+    dt: f64,
+) -> [u64; MAX_SPECIES] {
+    let vol = l.voxel_volume();
+    let n_chunks = packets.len().div_ceil(CHUNK);
+    if bufs.chunks.len() < n_chunks {
+        bufs.chunks.resize_with(n_chunks, Vec::new);
+    }
+    let Packets { id, voxel, species, weight, .. } = packets;
+    let drained = weight
+        .par_chunks_mut(CHUNK)
+        .zip(voxel.par_chunks(CHUNK))
+        .zip(id.par_chunks(CHUNK))
+        .zip(species.par_chunks(CHUNK))
+        .zip(bufs.chunks.par_iter_mut())
+        .enumerate()
+        .map(|(c, ((((wt, vox), ids), sp), ev))| {
+            ev.clear();
+            let mut drained = [0u64; MAX_SPECIES];
+            for i in 0..wt.len() {
+                let w = wt[i];
+                if w == 0 {
+                    continue;
+                }
+                let s = sp[i] as usize;
+                let v = vox[i] as usize;
+                let k = &kin.species[s];
+                let vacc = motion.a[s][v] * vol;
+                if vacc <= 0.0 {
+                    continue;
+                }
+                let kind = sites.kind[v];
+                let k_bind = match k.target {
+                    Some(t) if kind == t as u8 => k.kon_eff * sites.free(v) / vacc,
+                    _ => 0.0,
+                };
+                let k_phago = if kind == CellKind::Phagocyte as u8 { k.phagocytosis } else { 0.0 };
+                let phi = matrix.collagen.data[v] + matrix.gag.data[v];
+                let k_ads = k.adsorption * phi / p.matrix_reference_fraction;
+                let k_drain = lymph.0[v] / vacc;
+                let total = k_bind + k_phago + k_ads + k_drain;
+                if total <= 0.0 {
+                    continue;
+                }
+                let mut rng = stream(seed, Domain::Binding, ids[i], step);
+                let n = rng.binomial(w, 1.0 - (-total * dt).exp());
+                if n == 0 {
+                    continue;
+                }
+                let mut out = [0u64; 4];
+                split(&mut rng, n, &[k_bind, k_phago, k_ads, k_drain], total, &mut out);
+                let [nb, np, na, nd] = out;
+                // Drained, phagocytosed and adsorbed particles leave the packet now; binding
+                // requests are settled against the cell's receptors afterwards.
+                wt[i] = w - np - na - nd;
+                drained[s] += nd;
+                let index = (c * CHUNK + i) as u32;
+                let base =
+                    Event { voxel: v as u32, id: ids[i], index, species: s as u8, kind: EventKind::Bind, count: 0 };
+                if nb > 0 {
+                    ev.push(Event { count: nb, ..base });
+                }
+                if np > 0 {
+                    ev.push(Event { kind: EventKind::Phagocytosis, count: np, ..base });
+                }
+                if na > 0 {
+                    ev.push(Event { kind: EventKind::Adsorption, count: na, ..base });
+                }
+            }
+            drained
+        })
+        .reduce(
+            || [0u64; MAX_SPECIES],
+            |mut a, b| {
+                for s in 0..MAX_SPECIES {
+                    a[s] += b[s];
+                }
+                a
+            },
+        );
+    bufs.merged.clear();
+    for ev in bufs.chunks.iter().take(n_chunks) {
+        bufs.merged.extend_from_slice(ev);
+    }
+    // A total order: voxel, then packet id, then kind.
+    bufs.merged.sort_unstable();
+    drained
+}
+
+/// The reaction pass over packets and the settlement of its events.
+#[allow(clippy::too_many_arguments)]
+pub fn packet_reactions(
+    lattice: Res<Lattice>,
+    kin: Res<Kinetics>,
+    sites: Res<CellSites>,
+    motion: Res<MotionFields>,
+    matrix: Res<Matrix>,
+    params: Res<BindingParams>,
+    lymph: Res<LymphFlow>,
+    occupancy: Res<Occupancy>,
+    clock: Res<Clock>,
+    seed: Res<Seed>,
+    mut packets: ResMut<Packets>,
+    mut bufs: ResMut<EventBuffers>,
+    mut mload: ResMut<MatrixLoad>,
+    mut ledger: ResMut<Ledger>,
+    mut active: ResMut<ActiveCells>,
+    mut cells: Query<(&mut Receptors, &mut CellLoad)>,
+) {
+    let drained = react_packets(
+        &lattice,
+        &kin,
+        &sites,
+        &motion,
+        &matrix,
+        &params,
+        &lymph,
+        &mut packets,
+        &mut bufs,
+        seed.0,
+        clock.step,
+        clock.dt,
+    );
+    for (total, n) in ledger.drained.iter_mut().zip(drained) {
+        *total += n;
+    }
+    for e in &bufs.merged {
+        let s = e.species as usize;
+        match e.kind {
+            EventKind::Adsorption => mload.bound[s][e.voxel as usize] += e.count,
+            EventKind::Phagocytosis | EventKind::Bind => {
+                let Some(entity) = occupancy.cell[e.voxel as usize] else {
+                    unreachable!("reaction with a cell in an empty voxel")
+                };
+                let (mut rec, mut load) = cells.get_mut(entity).expect("occupied voxel has a cell");
+                active.0.insert(entity);
+                if e.kind == EventKind::Phagocytosis {
+                    load.internalised[s] += e.count;
+                } else {
+                    let val = kin.species[s].valency as f64;
+                    let room = (rec.free / val).floor().max(0.0) as u64;
+                    let accepted = e.count.min(room);
+                    load.bound[s] += accepted;
+                    rec.free -= accepted as f64 * val;
+                    sites.set_free(e.voxel as usize, rec.free);
+                    packets.weight[e.index as usize] -= accepted;
+                }
+            }
+        }
+    }
+}
+
+/// Unbinding, internalisation, recycling and rebinding of held particles, cell by cell
+/// (in parallel: each cell touches only its own state, its own site and its own random stream).
+/// A cell updates every [`CellInterval`] steps, over the time since its last update.
+#[allow(clippy::too_many_arguments)] // a system's parameters are the resources it reads
+pub fn cell_kinetics(
+    lattice: Res<Lattice>,
+    kin: Res<Kinetics>,
+    motion: Res<MotionFields>,
+    params: Res<BindingParams>,
+    interval: Res<CellInterval>,
+    sites: Res<CellSites>,
+    releases: Res<Releases>,
+    active: Res<ActiveCells>,
+    clock: Res<Clock>,
+    seed: Res<Seed>,
+    mut cells: Query<(&Cell, &mut Receptors, &mut CellLoad)>,
+) {
+    let now = clock.time + clock.dt;
+    let vol = lattice.voxel_volume();
+    let (step, seed, m) = (clock.step, seed.0, interval.0);
+    let last_step = now >= clock.end * (1.0 - 1e-12);
+    let ns = kin.species.len();
+    cells.par_iter_many_unique_mut(&active.0).for_each(|item| {
+        let Ok((cell, mut rec, mut load)) = item else { return };
+        if !last_step && (step + u64::from(cell.voxel)) % m != 0 {
+            return;
+        }
+        let dt = now - load.updated_at;
+        if dt <= 0.0 {
+            return;
+        }
+        let busy = (0..ns).any(|s| load.bound[s] > 0 || load.held[s] > 0) || rec.surface < rec.total;
+        load.updated_at = now;
+        if !busy {
+            return;
+        }
+        let v = cell.voxel as usize;
+        let mut rng = stream(seed, Domain::Binding, u64::from(cell.voxel) | (1 << 40), step);
+        for s in 0..ns {
+            let k = &kin.species[s];
+            let val = f64::from(k.valency);
+            if load.bound[s] > 0 {
+                let koff = k.koff_eff(rec.total, params.cell_area, params.ligand_reach);
+                let total = koff + k.kint;
+                if total > 0.0 {
+                    let n = rng.binomial(load.bound[s], 1.0 - (-total * dt).exp());
+                    let n_int = rng.binomial(n, k.kint / total);
+                    let n_off = n - n_int;
+                    load.bound[s] -= n;
+                    load.internalised[s] += n_int;
+                    load.held[s] += n_off;
+                    rec.free += n_off as f64 * val;
+                    rec.surface -= n_int as f64 * val;
+                }
+            }
+            if load.held[s] > 0 && k.target.is_some_and(|t| t == cell.kind) {
+                let vacc = motion.a[s][v] * vol;
+                if vacc > 0.0 && rec.free >= val {
+                    let rate = k.kon_eff * rec.free / vacc;
+                    let n = rng.binomial(load.held[s], 1.0 - (-rate * dt).exp());
+                    let n = n.min((rec.free / val).floor() as u64);
+                    load.held[s] -= n;
+                    load.bound[s] += n;
+                    rec.free -= n as f64 * val;
+                }
+            }
+            if load.held[s] >= k.packet {
+                let n = load.held[s] / k.packet;
+                load.held[s] -= n * k.packet;
+                releases.0.lock().expect("release list").push((cell.voxel, s as u8, n, k.packet));
+            }
+        }
+        if rec.surface < rec.total && params.receptor_recycling > 0.0 {
+            let back = (rec.total - rec.surface) * (1.0 - (-params.receptor_recycling * dt).exp());
+            rec.surface += back;
+            rec.free += back;
+        }
+        sites.set_free(v, rec.free);
+    });
+}
+
+/// Desorption from the matrix, voxel by voxel.
+pub fn matrix_kinetics(
+    params: Res<BindingParams>,
+    kin: Res<Kinetics>,
+    clock: Res<Clock>,
+    seed: Res<Seed>,
+    releases: Res<Releases>,
+    mut mload: ResMut<MatrixLoad>,
+) {
+    if params.desorption <= 0.0 {
+        return;
+    }
+    let p = 1.0 - (-params.desorption * clock.dt).exp();
+    let (step, seed) = (clock.step, seed.0);
+    let MatrixLoad { bound, held } = &mut *mload;
+    for (s, (b, h)) in bound.iter_mut().zip(held.iter_mut()).enumerate() {
+        let w = kin.species[s].packet;
+        b.par_chunks_mut(4096).zip(h.par_chunks_mut(4096)).enumerate().for_each(|(c, (b, h))| {
+            for i in 0..b.len() {
+                if b[i] > 0 {
+                    let v = (c * 4096 + i) as u64;
+                    let mut rng = stream(seed, Domain::Binding, v | ((s as u64 + 2) << 40), step);
+                    let n = rng.binomial(b[i], p);
+                    b[i] -= n;
+                    h[i] += n;
+                    if h[i] >= w {
+                        let k = h[i] / w;
+                        h[i] -= k * w;
+                        releases.0.lock().expect("release list").push((v as u32, s as u8, k, w));
+                    }
+                }
+            }
+        });
+    }
+}
+
+/// Turns the particles gathered at voxels into new packets, in a fixed order (voxel, species):
+/// new packet ids do not depend on which thread gathered what.
+pub fn release_held(
+    lattice: Res<Lattice>,
+    clock: Res<Clock>,
+    seed: Res<Seed>,
+    releases: Res<Releases>,
+    mut packets: ResMut<Packets>,
+) {
+    let mut list = releases.0.lock().expect("release list");
+    if list.is_empty() {
+        return;
+    }
+    list.sort_unstable();
+    for &(v, s, n, w) in list.iter() {
+        let ijk = lattice.ijk(v as usize);
+        let c = lattice.centre(ijk);
+        let mut rng = stream(seed.0, Domain::Binding, u64::from(v) | ((100 + u64::from(s)) << 40), clock.step);
+        for _ in 0..n {
+            let x = [
+                c[0] + (rng.uniform() - 0.5) * lattice.h,
+                c[1] + (rng.uniform() - 0.5) * lattice.h,
+                c[2] + (rng.uniform() - 0.5) * lattice.h,
+            ];
+            packets.push(&lattice, x, s, w);
+        }
+    }
+    list.clear();
+}
+
+/// Largest first-order rate a cell's own kinetics can reach, 1/s.
+fn fastest_cell_rate(kin: &Kinetics, p: &BindingParams) -> f64 {
+    kin.species.iter().map(|k| k.koff_single + k.kint).fold(p.receptor_recycling, f64::max)
+}
+
+/// Adds binding and uptake to the schedule.
+pub fn install(world: &mut World, schedule: &mut Schedule, params: &Params) {
+    let designs = world.resource::<Designs>().clone();
+    let n = world.resource::<Lattice>().len();
+    let kin = Kinetics::build(&designs, &params.binding);
+    let k = fastest_cell_rate(&kin, &params.binding);
+    let interval = if k > 0.0 { ((0.01 / (k * params.run.time_step)).floor() as u64).clamp(1, 1000) } else { 1000 };
+    world.insert_resource(CellInterval(interval));
+    world.insert_resource(kin);
+    world.insert_resource(params.binding.clone());
+    let mut sites = CellSites::new(n);
+    let mut q = world.query::<(&Cell, &Receptors)>();
+    sites.rebuild(q.iter(world));
+    world.insert_resource(sites);
+    world.init_resource::<Releases>();
+    world.init_resource::<ActiveCells>();
+    world.init_resource::<EventBuffers>();
+    if !world.contains_resource::<LymphFlow>() {
+        world.insert_resource(LymphFlow(vec![0.0; n]));
+    }
+    world.insert_resource(MatrixLoad { bound: vec![vec![0; n]; designs.len()], held: vec![vec![0; n]; designs.len()] });
+    schedule
+        .add_systems((packet_reactions, cell_kinetics, matrix_kinetics, release_held).chain().in_set(Phase::Binding));
+}

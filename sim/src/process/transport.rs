@@ -1,0 +1,415 @@
+//! Transport: packets move by hindered diffusion and advection with the interstitial fluid.
+//!
+//! A packet's position follows the Ito stochastic differential equation of advection-diffusion
+//! in a porous medium,
+//!
+//! `dX = (f_c u(X) + grad(a D)(X) / a(X)) dt + sqrt(2 D(X)) dW`,
+//!
+//! whose Fokker-Planck equation is `d(aC)/dt = div(a D grad C) - div(f_c u a C)` for the
+//! concentration `C` in the accessible fluid, with `a = porosity x steric partition` the fluid
+//! fraction a particle can reach, `D = D0 x hindrance` the hindered diffusion coefficient,
+//! `u` the interstitial fluid velocity (Darcy flux over porosity) and `f_c` the convective
+//! hindrance. The drift term `grad(a D)/a` is the Ito correction that keeps a uniform `C`
+//! uniform where `D` and `a` vary (the well-mixed condition: Thomson 1987, J Fluid Mech 180:529;
+//! for discontinuous coefficients LaBolle, Fogg and Tompson 1996, Water Resour Res 32:583).
+//! `a D` and `a` are interpolated trilinearly between voxel centres, so a jump between voxels is
+//! seen as a steep but continuous ramp the sub-steps resolve; `u` is interpolated linearly
+//! between the faces of the voxel along each axis (Pollock 1988, Ground Water 26:743), which
+//! keeps it divergence-free.
+//!
+//! `D0` is the Stokes-Einstein coefficient; hindrance is steric (Ogston et al. 1973, collagen
+//! fibres) times hydrodynamic (Brinkman medium of the Jackson-James permeability of collagen
+//! and glycosaminoglycans; Phillips, Deen and Brady 1989), multiplied as in Phillips 2000
+//! (AIChE J 46:1466). Glycosaminoglycan chains are flexible and enter only through the
+//! permeability (the model's choice). The partition coefficient is Ogston's (1958).
+//!
+//! Time stepping: each packet takes as many equal sub-steps as keep its move below
+//! `max_step_voxels` of a voxel edge (the Euler scheme; uniform increments give the simplified
+//! weak Euler scheme of Kloeden and Platen 1992, section 14.1, whose moves are bounded). Faces
+//! reflect or absorb. Every packet draws from its own stream (seed, packet id, step), so the
+//! result is the same for any number of threads.
+
+use bevy_ecs::prelude::*;
+use rayon::prelude::*;
+
+use crate::lattice::Lattice;
+use crate::params::Params;
+use crate::particles::hindrance::{
+    brinkman_diffusion, jackson_james, mixed_permeability, ogston_diffusion, ogston_partition,
+};
+use crate::particles::{Designs, Packets};
+use crate::rng::{Domain, stream};
+use crate::scenario::{FaceRule, HindranceModel, Increments};
+use crate::tissue::{MAX_SPECIES, Matrix};
+use crate::world::{Clock, Phase, Seed};
+
+/// Parameters of motion (SI).
+#[derive(Resource, Debug, Clone, PartialEq)]
+pub struct TransportParams {
+    pub hindrance: HindranceModel,
+    pub steric_partition: bool,
+    /// Largest move in one sub-step, in voxel edges.
+    pub max_step_voxels: f64,
+    pub increments: Increments,
+    pub faces: FaceRule,
+    pub sort_interval_steps: u64,
+    /// Collagen and glycosaminoglycan fibre radii, m.
+    pub collagen_fibre_radius: f64,
+    pub gag_fibre_radius: f64,
+}
+
+impl TransportParams {
+    /// From a resolved scenario.
+    pub fn from_params(p: &Params) -> Self {
+        p.transport.clone()
+    }
+}
+
+/// Motion coefficients of each species per voxel.
+#[derive(Resource, Debug, Clone, Default)]
+pub struct MotionFields {
+    /// `a D`: accessible fraction times hindered diffusion coefficient, m^2/s, per species.
+    pub ad: Vec<Vec<f64>>,
+    /// `a`: fluid fraction accessible to the species (porosity times partition), per species.
+    pub a: Vec<Vec<f64>>,
+    /// Convective hindrance per species.
+    pub fc: Vec<f64>,
+    /// Largest `D` of each species, m^2/s.
+    pub d_max: Vec<f64>,
+}
+
+/// Interstitial fluid velocity on voxel faces, m/s (Darcy flux density over face porosity).
+/// Face `i` of the x array lies at `x = origin + i h`: index `i + (nx + 1) (j + ny k)`; the y and z
+/// arrays likewise. Zero where no pressure field is computed.
+#[derive(Resource, Debug, Clone)]
+pub struct FaceVelocity {
+    pub x: Vec<f64>,
+    pub y: Vec<f64>,
+    pub z: Vec<f64>,
+}
+
+impl FaceVelocity {
+    /// A still fluid.
+    pub fn zero(l: &Lattice) -> Self {
+        let [nx, ny, nz] = l.n;
+        FaceVelocity {
+            x: vec![0.0; (nx + 1) * ny * nz],
+            y: vec![0.0; nx * (ny + 1) * nz],
+            z: vec![0.0; nx * ny * (nz + 1)],
+        }
+    }
+
+    /// A uniform velocity `u` (m/s) on every face.
+    pub fn uniform(l: &Lattice, u: [f64; 3]) -> Self {
+        let mut f = Self::zero(l);
+        f.x.iter_mut().for_each(|v| *v = u[0]);
+        f.y.iter_mut().for_each(|v| *v = u[1]);
+        f.z.iter_mut().for_each(|v| *v = u[2]);
+        f
+    }
+}
+
+/// Hindered diffusion coefficient ratio `D/D0` and partition coefficient of a sphere of radius
+/// `rs` in a matrix of collagen fraction `phi_c` and glycosaminoglycan fraction `phi_g`.
+pub fn matrix_hindrance(p: &TransportParams, rs: f64, phi_c: f64, phi_g: f64) -> (f64, f64) {
+    let steric = ogston_diffusion(rs, p.collagen_fibre_radius, phi_c);
+    let partition = if p.steric_partition { ogston_partition(rs, p.collagen_fibre_radius, phi_c) } else { 1.0 };
+    let ratio = match p.hindrance {
+        HindranceModel::None => 1.0,
+        HindranceModel::Ogston => steric,
+        HindranceModel::OgstonBrinkman => {
+            let kappa = mixed_permeability(
+                jackson_james(p.collagen_fibre_radius, phi_c),
+                jackson_james(p.gag_fibre_radius, phi_g),
+            );
+            steric * brinkman_diffusion(rs, kappa)
+        }
+    };
+    (ratio, partition)
+}
+
+impl MotionFields {
+    /// Coefficients of every species from the matrix composition.
+    pub fn build(p: &TransportParams, designs: &Designs, m: &Matrix) -> Self {
+        let mut f = MotionFields::default();
+        for d in &designs.0 {
+            let n = m.porosity.len();
+            let mut ad = vec![0.0; n];
+            let mut a = vec![0.0; n];
+            ad.par_iter_mut().zip(a.par_iter_mut()).enumerate().for_each(|(v, (adv, av))| {
+                let (ratio, part) = matrix_hindrance(p, d.radius, m.collagen.data[v], m.gag.data[v]);
+                *av = m.porosity.data[v] * part;
+                *adv = *av * d.d0 * ratio;
+            });
+            let d_max = ad.iter().zip(&a).map(|(g, a)| if *a > 0.0 { g / a } else { 0.0 }).fold(0.0, f64::max);
+            f.ad.push(ad);
+            f.a.push(a);
+            f.fc.push(d.convective_hindrance);
+            f.d_max.push(d_max);
+        }
+        f
+    }
+
+    /// Uniform coefficients (tests, analytic checks): diffusion `d`, accessible fraction `a`.
+    pub fn uniform(l: &Lattice, d: f64, a: f64) -> Self {
+        MotionFields { ad: vec![vec![a * d; l.len()]], a: vec![vec![a; l.len()]], fc: vec![1.0], d_max: vec![d] }
+    }
+}
+
+/// The lattice in the kernel's own units (voxel edges), precomputed once per step.
+struct Grid {
+    n: [usize; 3],
+    hi: [f64; 3],
+    /// Index strides of the interpolation corners (0 along an axis one voxel thick).
+    corner: [usize; 3],
+    nx: usize,
+    nxy: usize,
+}
+
+impl Grid {
+    fn new(l: &Lattice) -> Self {
+        let n = l.n;
+        Grid {
+            n,
+            hi: [n[0] as f64, n[1] as f64, n[2] as f64],
+            corner: [usize::from(n[0] > 1), if n[1] > 1 { n[0] } else { 0 }, if n[2] > 1 { n[0] * n[1] } else { 0 }],
+            nx: n[0],
+            nxy: n[0] * n[1],
+        }
+    }
+
+    /// Voxel holding lattice coordinates `u` (clamped into the box).
+    #[inline]
+    fn cell(&self, u: &[f64; 3]) -> [usize; 3] {
+        std::array::from_fn(|a| (u[a].max(0.0) as usize).min(self.n[a] - 1))
+    }
+
+    /// Trilinear interpolation of `ad` and `a` at lattice coordinates `u`, with the gradient of
+    /// `ad` per voxel edge. Beyond the outermost voxel centres the fields are extended as
+    /// constants (zero gradient).
+    #[inline]
+    fn interpolate(&self, ad: &[f64], a: &[f64], u: &[f64; 3]) -> (f64, [f64; 3], f64) {
+        let mut base = [0usize; 3];
+        let mut t = [0.0f64; 3];
+        let mut slope = [1.0f64; 3];
+        for ax in 0..3 {
+            let c = u[ax] - 0.5;
+            let top = self.hi[ax] - 1.0;
+            if c <= 0.0 {
+                slope[ax] = 0.0;
+            } else if c >= top {
+                base[ax] = self.n[ax].saturating_sub(2);
+                t[ax] = if self.n[ax] >= 2 { 1.0 } else { 0.0 };
+                slope[ax] = 0.0;
+            } else {
+                let b = (c as usize).min(self.n[ax] - 2);
+                base[ax] = b;
+                t[ax] = c - b as f64;
+            }
+        }
+        let [sx, sy, sz] = self.corner;
+        let b = base[0] + self.nx * base[1] + self.nxy * base[2];
+        let idx = [b, b + sx, b + sy, b + sx + sy, b + sz, b + sx + sz, b + sy + sz, b + sx + sy + sz];
+        let g: [f64; 8] = std::array::from_fn(|c| ad[idx[c]]);
+        let av: [f64; 8] = std::array::from_fn(|c| a[idx[c]]);
+        let [tx, ty, tz] = t;
+        let (ux, uy, uz) = (1.0 - tx, 1.0 - ty, 1.0 - tz);
+        let w = [
+            ux * uy * uz,
+            tx * uy * uz,
+            ux * ty * uz,
+            tx * ty * uz,
+            ux * uy * tz,
+            tx * uy * tz,
+            ux * ty * tz,
+            tx * ty * tz,
+        ];
+        let mut gi = 0.0;
+        let mut ai = 0.0;
+        for c in 0..8 {
+            gi += w[c] * g[c];
+            ai += w[c] * av[c];
+        }
+        let dx = uy * uz * (g[1] - g[0]) + ty * uz * (g[3] - g[2]) + uy * tz * (g[5] - g[4]) + ty * tz * (g[7] - g[6]);
+        let dy = ux * uz * (g[2] - g[0]) + tx * uz * (g[3] - g[1]) + ux * tz * (g[6] - g[4]) + tx * tz * (g[7] - g[5]);
+        let dz = ux * uy * (g[4] - g[0]) + tx * uy * (g[5] - g[1]) + ux * ty * (g[6] - g[2]) + tx * ty * (g[7] - g[3]);
+        (gi, [dx * slope[0], dy * slope[1], dz * slope[2]], ai)
+    }
+
+    /// Fluid velocity at lattice coordinates `u` in voxel `c`: linear between the voxel's faces.
+    #[inline]
+    fn velocity(&self, vel: &FaceVelocity, c: &[usize; 3], u: &[f64; 3]) -> [f64; 3] {
+        let [i, j, k] = *c;
+        let [nx, ny, _] = self.n;
+        let xi = i + (nx + 1) * (j + ny * k);
+        let yi = i + nx * (j + (ny + 1) * k);
+        let zi = i + nx * (j + ny * k);
+        let s = [u[0] - i as f64, u[1] - j as f64, u[2] - k as f64];
+        let lerp = |a: f64, b: f64, t: f64| a + (b - a) * t.clamp(0.0, 1.0);
+        [
+            lerp(vel.x[xi], vel.x[xi + 1], s[0]),
+            lerp(vel.y[yi], vel.y[yi + nx], s[1]),
+            lerp(vel.z[zi], vel.z[zi + nx * ny], s[2]),
+        ]
+    }
+}
+
+/// Whether the Ito drift term is applied (switched off only to show that it is needed).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Drift {
+    Ito,
+    /// No `grad(aD)/a` term: walkers then pile up where `D` is low (a deliberate error, for tests).
+    Omitted,
+}
+
+/// Moves every packet through one step of length `dt`; returns the particles that left through
+/// absorbing faces, per species.
+#[allow(clippy::too_many_arguments)]
+pub fn move_packets(
+    l: &Lattice,
+    fields: &MotionFields,
+    vel: &FaceVelocity,
+    p: &TransportParams,
+    packets: &mut Packets,
+    seed: u64,
+    step: u64,
+    dt: f64,
+    drift: Drift,
+) -> [u64; MAX_SPECIES] {
+    if dt <= 0.0 || packets.is_empty() {
+        return [0; MAX_SPECIES];
+    }
+    let grid = Grid::new(l);
+    let inv_h = 1.0 / l.h;
+    let inv_h2 = inv_h * inv_h;
+    // Everything below is in lattice units: lengths in voxel edges.
+    let lmax = p.max_step_voxels;
+    let hi = grid.hi;
+    let origin = l.origin;
+    let absorb = p.faces == FaceRule::Absorb;
+    let uniform_increments = p.increments == Increments::Uniform;
+    let ito = drift == Drift::Ito;
+    const CHUNK: usize = 2048;
+    let Packets { id, pos, voxel, species, weight, .. } = packets;
+    pos.par_chunks_mut(CHUNK)
+        .zip(voxel.par_chunks_mut(CHUNK))
+        .zip(weight.par_chunks_mut(CHUNK))
+        .zip(id.par_chunks(CHUNK))
+        .zip(species.par_chunks(CHUNK))
+        .map(|((((pos, vox), wt), ids), sp)| {
+            let mut left = [0u64; MAX_SPECIES];
+            for i in 0..pos.len() {
+                if wt[i] == 0 {
+                    continue;
+                }
+                let s = sp[i] as usize;
+                let ad = &fields.ad[s];
+                let af = &fields.a[s];
+                let fc = fields.fc[s];
+                let mut u =
+                    [(pos[i][0] - origin[0]) * inv_h, (pos[i][1] - origin[1]) * inv_h, (pos[i][2] - origin[2]) * inv_h];
+                let v0 = vox[i] as usize;
+                // Sub-steps from the coefficients of the starting voxel: diffusive reach
+                // sqrt(6 D h) at most 3/4 of the largest move, drift at most 1/4 of it.
+                let d_here = if af[v0] > 0.0 { ad[v0] / af[v0] * inv_h2 } else { 0.0 };
+                let c0 = grid.cell(&u);
+                let v_here = grid.velocity(vel, &c0, &u);
+                let umax = v_here.iter().fold(0.0f64, |m, x| m.max(x.abs())) * fc.abs() * inv_h;
+                let n_diff = 6.0 * d_here * dt / (0.5625 * lmax * lmax);
+                let n_adv = 4.0 * umax * dt / lmax;
+                let nsub = n_diff.max(n_adv).ceil().clamp(1.0, 1.0e6) as u64;
+                let h = dt / nsub as f64;
+                let mut rng = stream(seed, Domain::Transport, ids[i], step);
+                let mut gone = false;
+                for _ in 0..nsub {
+                    let (g, grad, a) = grid.interpolate(ad, af, &u);
+                    let d = if a > 0.0 { (g / a).max(0.0) * inv_h2 } else { 0.0 };
+                    let cell = grid.cell(&u);
+                    let w = grid.velocity(vel, &cell, &u);
+                    let amp = (2.0 * d * h).sqrt();
+                    let xi = if uniform_increments {
+                        rng.unit_variance_uniform3()
+                    } else {
+                        let (a1, a2) = rng.normal_pair();
+                        [a1, a2, rng.normal()]
+                    };
+                    let ito_scale = if ito && a > 0.0 { inv_h2 / a } else { 0.0 };
+                    for ax in 0..3 {
+                        let drift_v = fc * w[ax] * inv_h + grad[ax] * ito_scale;
+                        let mut x = u[ax] + drift_v * h + amp * xi[ax];
+                        if x < 0.0 || x > hi[ax] {
+                            if absorb {
+                                gone = true;
+                            }
+                            // Mirror back into the box (a move is far below the box size).
+                            if x < 0.0 {
+                                x = -x;
+                            }
+                            if x > hi[ax] {
+                                x = 2.0 * hi[ax] - x;
+                            }
+                            x = x.clamp(0.0, hi[ax]);
+                        }
+                        u[ax] = x;
+                    }
+                    if gone {
+                        break;
+                    }
+                }
+                if gone {
+                    left[s] += wt[i];
+                    wt[i] = 0;
+                    continue;
+                }
+                pos[i] = [origin[0] + u[0] * l.h, origin[1] + u[1] * l.h, origin[2] + u[2] * l.h];
+                let c = grid.cell(&u);
+                vox[i] = (c[0] + grid.nx * c[1] + grid.nxy * c[2]) as u32;
+            }
+            left
+        })
+        .reduce(
+            || [0u64; MAX_SPECIES],
+            |mut a, b| {
+                for s in 0..MAX_SPECIES {
+                    a[s] += b[s];
+                }
+                a
+            },
+        )
+}
+
+/// The transport system: moves packets, books those that left, re-sorts periodically.
+#[allow(clippy::too_many_arguments)] // a system's parameters are the resources it reads
+pub fn transport_system(
+    lattice: Res<Lattice>,
+    fields: Res<MotionFields>,
+    vel: Res<FaceVelocity>,
+    params: Res<TransportParams>,
+    clock: Res<Clock>,
+    seed: Res<Seed>,
+    mut packets: ResMut<Packets>,
+    mut ledger: ResMut<crate::process::accounting::Ledger>,
+) {
+    let left = move_packets(&lattice, &fields, &vel, &params, &mut packets, seed.0, clock.step, clock.dt, Drift::Ito);
+    for (s, n) in left.iter().enumerate().take(ledger.species()) {
+        ledger.left[s] += n;
+    }
+    packets.compact();
+    if clock.step.is_multiple_of(params.sort_interval_steps) {
+        packets.sort_morton(&lattice);
+    }
+}
+
+/// Adds the transport process.
+pub fn install(world: &mut World, schedule: &mut Schedule, params: &Params) {
+    let tp = TransportParams::from_params(params);
+    let designs = world.resource::<Designs>().clone();
+    let fields = MotionFields::build(&tp, &designs, world.resource::<Matrix>());
+    let lattice = world.resource::<Lattice>().clone();
+    world.insert_resource(fields);
+    if !world.contains_resource::<FaceVelocity>() {
+        world.insert_resource(FaceVelocity::zero(&lattice));
+    }
+    world.insert_resource(tp);
+    schedule.add_systems(transport_system.in_set(Phase::Transport));
+}

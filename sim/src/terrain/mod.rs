@@ -1,0 +1,3 @@
+//! Generators of heterogeneous terrain: spatially correlated random fields.
+
+pub mod random_field;
