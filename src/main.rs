@@ -181,7 +181,7 @@ fn run(cli: Cli) -> Result<(), Box<dyn std::error::Error>> {
         Command::Check { scenario, resolved } => {
             let loaded = LoadedScenario::from_file(&scenario)?;
             println!("{}: valid scenario", scenario.display());
-            print!("{}", check::render(&check::derived(&loaded)));
+            print!("{}", check::render(&check::derived(&loaded)?));
             if resolved {
                 println!("\n# resolved parameters (defaults applied)\n{}", loaded.scenario);
             }

@@ -15,13 +15,14 @@ pub struct Derived {
     pub note: String,
 }
 
-fn d(section: &'static str, name: &str, value: f64, units: &'static str, note: &str) -> Derived {
+pub(crate) fn d(section: &'static str, name: &str, value: f64, units: &'static str, note: &str) -> Derived {
     Derived { section, name: name.to_string(), value, units, note: note.to_string() }
 }
 
-/// Computes the check report of a scenario.
-pub fn derived(loaded: &LoadedScenario) -> Vec<Derived> {
-    let p = Params::resolve(&loaded.scenario);
+/// Computes the check report of a scenario (builds the vessel network of the network model,
+/// which can fail on a bad network file).
+pub fn derived(loaded: &LoadedScenario) -> crate::error::SimResult<Vec<Derived>> {
+    let p = Params::resolve_loaded(loaded);
     let l = &p.lattice;
     let mut out = Vec::new();
     let n = l.len() as f64;
@@ -68,7 +69,8 @@ pub fn derived(loaded: &LoadedScenario) -> Vec<Derived> {
     out.push(d("time", "time step", p.run.time_step, "s", "requested"));
     out.push(d("time", "steps", steps, "1", "at the requested step"));
     out.push(d("time", "snapshots", (p.run.end_time / p.run.snapshot_interval).ceil() + 1.0, "1", "including t = 0"));
-    out
+    crate::vessels::check::derived(&p, &regions, &mut out)?;
+    Ok(out)
 }
 
 /// The interstitial fluid numbers of Baxter and Jain 1989 (Microvasc Res 37:77): for a uniform

@@ -23,6 +23,7 @@ pub mod terrain;
 pub mod tissue;
 pub mod units;
 pub mod vascular;
+pub mod vessels;
 pub mod world;
 
 pub use error::{SimError, SimResult};

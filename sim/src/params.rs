@@ -144,6 +144,109 @@ pub struct LymphaticParams {
     pub density_half_width: f64,
 }
 
+/// The circulating blood.
+#[derive(Resource, Debug, Clone, PartialEq)]
+pub struct BloodParams {
+    /// Circulating blood volume, m^3.
+    pub volume: f64,
+    /// Systemic discharge haematocrit.
+    pub haematocrit: f64,
+    /// Plasma viscosity, Pa s.
+    pub plasma_viscosity: f64,
+}
+
+impl BloodParams {
+    /// Plasma volume `V_blood (1 - Hct)`, m^3: the volume particles circulate in.
+    pub fn plasma_volume(&self) -> f64 {
+        self.volume * (1.0 - self.haematocrit)
+    }
+}
+
+/// The explicit vessel network: its source, generator settings, flow boundary conditions and
+/// wall properties, in SI.
+#[derive(Resource, Debug, Clone, PartialEq)]
+pub struct NetworkParams {
+    pub source: crate::scenario::NetworkSource,
+    /// Node and segment tables of a CSV network, resolved against the scenario's folder.
+    pub nodes_csv: std::path::PathBuf,
+    pub segments_csv: std::path::PathBuf,
+    /// VTK polydata of a VTK network, resolved against the scenario's folder.
+    pub vtk_file: std::path::PathBuf,
+    /// Metres per VTK coordinate unit.
+    pub vtk_length_unit: f64,
+    pub keep_disconnected: bool,
+    /// Capillary spacing, m.
+    pub capillary_spacing: f64,
+    /// Median capillary radius, m.
+    pub capillary_radius: f64,
+    /// Standard deviation of ln(capillary radius).
+    pub capillary_radius_spread: f64,
+    /// Node jitter as a fraction of the spacing.
+    pub position_jitter: f64,
+    pub cross_link_probability: f64,
+    /// Flow axis 0, 1 or 2.
+    pub flow_axis: usize,
+    /// Inlet and outlet blood pressure, Pa.
+    pub inlet_pressure: f64,
+    pub outlet_pressure: f64,
+    /// Median tumour vessel radius, m, and the standard deviation of its logarithm.
+    pub tumour_radius: f64,
+    pub tumour_radius_spread: f64,
+    pub necrotic_core_fraction: f64,
+    pub core_vessel_survival: f64,
+    pub rim_thickness_fraction: f64,
+    pub rim_density_factor: f64,
+    pub tortuosity: f64,
+    pub tumour_pore_distribution: crate::scenario::PoreDistribution,
+    /// Tumour pore radius: median, log spread, bounds, m.
+    pub tumour_pore_median: f64,
+    pub tumour_pore_spread: f64,
+    pub tumour_pore_min: f64,
+    pub tumour_pore_max: f64,
+    /// Pore area fraction, pore radius (m) and wall thickness (m): index 0 host, 1 tumour.
+    pub pore_fraction: [f64; 2],
+    pub host_pore_radius: f64,
+    pub wall_thickness: [f64; 2],
+    pub wall_conductivity: crate::scenario::WallConductivitySource,
+    pub hindrance: crate::scenario::HindranceModel,
+    pub viscosity_law: crate::scenario::ViscosityLaw,
+    /// Slowest mean velocity of a perfused segment, m/s.
+    pub min_perfused_velocity: f64,
+    pub solver_tolerance: f64,
+}
+
+/// One particle design as the vessel and plasma processes see it, in SI.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ParticlePlasmaParams {
+    pub name: String,
+    /// Hydrodynamic radius, m.
+    pub hydrodynamic_radius: f64,
+    /// Surface potential, V.
+    pub surface_potential: f64,
+    pub coating: crate::scenario::Coating,
+    /// Particles of the bolus at t = 0 (exact count).
+    pub dose: u64,
+    pub model: crate::scenario::PlasmaModel,
+    /// Renal cut-off diameter and its width, m; renal clearance rate well below it, 1/s.
+    pub renal_cutoff_diameter: f64,
+    pub renal_cutoff_width: f64,
+    pub renal_rate: f64,
+    /// Phagocytic clearance rate of a small, neutral, bare particle, 1/s.
+    pub mps_rate: f64,
+    /// Diameter scale (m) and exponent of the size dependence of phagocytic clearance.
+    pub mps_size_scale: f64,
+    pub mps_size_exponent: f64,
+    /// Positive potential that multiplies phagocytic clearance by e, V.
+    pub mps_charge_scale: f64,
+    pub stealth_factor: f64,
+    /// Elimination and distribution half-lives (s) and the distribution fraction.
+    pub half_life: f64,
+    pub distribution_half_life: f64,
+    pub distribution_fraction: f64,
+    /// Measured plasma table, resolved against the scenario's folder.
+    pub table_csv: std::path::PathBuf,
+}
+
 /// Output choices.
 #[derive(Resource, Debug, Clone, PartialEq)]
 pub struct OutputParams {
@@ -166,6 +269,10 @@ pub struct Params {
     pub continuum_vessels: ContinuumVesselParams,
     pub fluid: FluidParams,
     pub lymphatics: LymphaticParams,
+    pub network: NetworkParams,
+    pub blood: BloodParams,
+    /// Plasma pharmacokinetics of each particle design, in species order.
+    pub particles: Vec<ParticlePlasmaParams>,
     pub output: OutputParams,
     pub transport: crate::process::transport::TransportParams,
     pub binding: crate::process::binding::BindingParams,
@@ -182,8 +289,17 @@ impl Params {
         }
     }
 
-    /// Converts a validated scenario to SI.
+    /// Converts a validated scenario to SI; file paths are resolved against the scenario's folder.
+    pub fn resolve_loaded(loaded: &crate::scenario::LoadedScenario) -> Self {
+        Self::resolve_in(&loaded.scenario, Some(&loaded.file))
+    }
+
+    /// Converts a validated scenario to SI; relative file paths stay relative to the working folder.
     pub fn resolve(s: &Scenario) -> Self {
+        Self::resolve_in(s, None)
+    }
+
+    fn resolve_in(s: &Scenario, file: Option<&std::path::Path>) -> Self {
         let lattice = Lattice::new(
             s.lattice.shape,
             s.lattice.voxel_um * UM,
@@ -287,6 +403,82 @@ impl Params {
                 uptake_charge_scale: s.uptake.uptake_charge_scale_mV * 1e-3,
             },
             designs: crate::particles::Designs::from_scenario(s),
+            network: {
+                let n = &s.vessels.network;
+                let rel = |w: &str| crate::scenario::scenario_relative(file, w);
+                NetworkParams {
+                    source: n.source,
+                    nodes_csv: rel(&n.nodes_csv),
+                    segments_csv: rel(&n.segments_csv),
+                    vtk_file: rel(&n.vtk_file),
+                    vtk_length_unit: n.vtk_length_unit_um * UM,
+                    keep_disconnected: n.keep_disconnected,
+                    capillary_spacing: n.capillary_spacing_um * UM,
+                    capillary_radius: n.capillary_radius_um * UM,
+                    capillary_radius_spread: n.capillary_radius_spread,
+                    position_jitter: n.position_jitter,
+                    cross_link_probability: n.cross_link_probability,
+                    flow_axis: match n.flow_axis {
+                        crate::scenario::Axis::X => 0,
+                        crate::scenario::Axis::Y => 1,
+                        crate::scenario::Axis::Z => 2,
+                    },
+                    inlet_pressure: n.inlet_pressure_mmHg * MMHG,
+                    outlet_pressure: n.outlet_pressure_mmHg * MMHG,
+                    tumour_radius: n.tumour_radius_um * UM,
+                    tumour_radius_spread: n.tumour_radius_spread,
+                    necrotic_core_fraction: n.necrotic_core_fraction,
+                    core_vessel_survival: n.core_vessel_survival,
+                    rim_thickness_fraction: n.rim_thickness_fraction,
+                    rim_density_factor: n.rim_density_factor,
+                    tortuosity: n.tortuosity,
+                    tumour_pore_distribution: n.tumour_pore_distribution,
+                    tumour_pore_median: n.tumour_pore_median_nm * NM,
+                    tumour_pore_spread: n.tumour_pore_spread,
+                    tumour_pore_min: n.tumour_pore_min_nm * NM,
+                    tumour_pore_max: n.tumour_pore_max_nm * NM,
+                    pore_fraction: [n.host_pore_fraction, n.tumour_pore_fraction],
+                    host_pore_radius: n.host_pore_radius_nm * NM,
+                    wall_thickness: [n.host_wall_thickness_um * UM, n.tumour_wall_thickness_um * UM],
+                    wall_conductivity: n.wall_conductivity,
+                    hindrance: n.hindrance,
+                    viscosity_law: n.viscosity_law,
+                    min_perfused_velocity: n.min_perfused_velocity_um_per_s * UM,
+                    solver_tolerance: n.solver_tolerance,
+                }
+            },
+            blood: BloodParams {
+                volume: s.blood.volume_mL * crate::units::ML,
+                haematocrit: s.blood.haematocrit,
+                plasma_viscosity: s.blood.plasma_viscosity_mPa_s * 1e-3,
+            },
+            particles: s
+                .particle
+                .iter()
+                .map(|p| {
+                    let pl = &p.plasma;
+                    ParticlePlasmaParams {
+                        name: p.name.clone(),
+                        hydrodynamic_radius: p.hydrodynamic_radius_nm * NM,
+                        surface_potential: p.surface_potential_mV * 1e-3,
+                        coating: p.coating,
+                        dose: p.dose_particles.round() as u64,
+                        model: pl.model,
+                        renal_cutoff_diameter: pl.renal_cutoff_diameter_nm * NM,
+                        renal_cutoff_width: pl.renal_cutoff_width_nm * NM,
+                        renal_rate: std::f64::consts::LN_2 / (pl.renal_half_life_min * crate::units::MIN),
+                        mps_rate: std::f64::consts::LN_2 / (pl.mps_half_life_h * HOUR),
+                        mps_size_scale: pl.mps_size_scale_nm * NM,
+                        mps_size_exponent: pl.mps_size_exponent,
+                        mps_charge_scale: pl.mps_charge_scale_mV * 1e-3,
+                        stealth_factor: pl.stealth_factor,
+                        half_life: pl.half_life_h * HOUR,
+                        distribution_half_life: pl.distribution_half_life_h * HOUR,
+                        distribution_fraction: pl.distribution_fraction,
+                        table_csv: crate::scenario::scenario_relative(file, &pl.table_csv),
+                    }
+                })
+                .collect(),
             output: OutputParams {
                 compression_level: s.output.compression_level as u8,
                 packet_tables: s.output.packet_tables,

@@ -111,7 +111,7 @@ pub struct Simulation {
 impl Simulation {
     /// Builds the world of a scenario: terrain, entities and process resources.
     pub fn new(loaded: &LoadedScenario) -> SimResult<Self> {
-        let params = Params::resolve(&loaded.scenario);
+        let params = Params::resolve_loaded(loaded);
         let mut world = World::new();
         let lattice = params.lattice.clone();
         let regions = Regions::from_geometry(&lattice, &params.tumour);

@@ -3,7 +3,9 @@
 
 pub mod accounting;
 pub mod binding;
+pub mod blood;
 pub mod output;
+pub mod plasma;
 pub mod pressure;
 pub mod transport;
 
@@ -14,6 +16,9 @@ use crate::params::Params;
 
 /// Adds every process of the scenario to the world and the step schedule.
 pub fn install(world: &mut World, schedule: &mut Schedule, params: &Params) -> SimResult<()> {
+    // Vessels and plasma first: the pressure process reads the `WallFluid` the blood process inserts.
+    blood::install(world, schedule, params)?;
+    plasma::install(world, schedule, params)?;
     output::install(world, schedule, params);
     pressure::install(world, schedule, params)?;
     world.insert_resource(params.designs.clone());

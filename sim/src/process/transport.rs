@@ -39,14 +39,14 @@ use crate::particles::hindrance::{
 };
 use crate::particles::{Designs, Packets};
 use crate::rng::{Domain, stream};
-use crate::scenario::{FaceRule, HindranceModel, Increments};
+use crate::scenario::{FaceRule, Increments, MatrixHindrance};
 use crate::tissue::{MAX_SPECIES, Matrix};
 use crate::world::{Clock, Phase, Seed};
 
 /// Parameters of motion (SI).
 #[derive(Resource, Debug, Clone, PartialEq)]
 pub struct TransportParams {
-    pub hindrance: HindranceModel,
+    pub hindrance: MatrixHindrance,
     pub steric_partition: bool,
     /// Largest move in one sub-step, in voxel edges.
     pub max_step_voxels: f64,
@@ -115,9 +115,9 @@ pub fn matrix_hindrance(p: &TransportParams, rs: f64, phi_c: f64, phi_g: f64) ->
     let steric = ogston_diffusion(rs, p.collagen_fibre_radius, phi_c);
     let partition = if p.steric_partition { ogston_partition(rs, p.collagen_fibre_radius, phi_c) } else { 1.0 };
     let ratio = match p.hindrance {
-        HindranceModel::None => 1.0,
-        HindranceModel::Ogston => steric,
-        HindranceModel::OgstonBrinkman => {
+        MatrixHindrance::None => 1.0,
+        MatrixHindrance::Ogston => steric,
+        MatrixHindrance::OgstonBrinkman => {
             let kappa = mixed_permeability(
                 jackson_james(p.collagen_fibre_radius, phi_c),
                 jackson_james(p.gag_fibre_radius, phi_g),

@@ -9,6 +9,7 @@ mod sections;
 pub mod spans;
 pub mod spec;
 mod transport_sections;
+mod vessel_checks;
 
 use std::fmt;
 use std::path::{Path, PathBuf};
@@ -17,6 +18,7 @@ pub use sections::*;
 use spans::SpanIndex;
 pub use spec::{Check, KeySpec, Problem, Section, SectionDoc};
 pub use transport_sections::*;
+pub use vessel_checks::scenario_relative;
 
 /// Why a scenario could not be used.
 #[derive(Debug, Clone, thiserror::Error)]
@@ -102,6 +104,7 @@ const UNIT_SUFFIXES: &[&str] = &[
     "per_day",
     "mmHg_per_s",
     "percent",
+    "um_per_s",
 ];
 
 fn stem(key: &str) -> &str {

@@ -124,6 +124,158 @@ section! {
     }
 }
 
+/// Where the vessel network of the `network` model comes from.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum NetworkSource {
+    /// A host capillary bed with tumour vessels inside the tumour (dense rim, sparse core).
+    Tumour,
+    /// A host capillary bed only, the same everywhere.
+    CapillaryBed,
+    /// Nodes and segments read from two CSV files (`nodes_csv`, `segments_csv`).
+    Csv,
+    /// Polylines read from a VTK legacy polydata file (`vtk_file`).
+    Vtk,
+}
+checked_plain!(NetworkSource);
+
+/// A lattice axis, for the direction of blood flow through a generated bed.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Axis {
+    X,
+    Y,
+    Z,
+}
+checked_plain!(Axis);
+
+/// How the pore radius of each tumour vessel is drawn.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum PoreDistribution {
+    /// Log-normal with median `tumour_pore_median_nm` and log spread `tumour_pore_spread`,
+    /// truncated to [`tumour_pore_min_nm`, `tumour_pore_max_nm`].
+    LogNormal,
+    /// Uniform on [`tumour_pore_min_nm`, `tumour_pore_max_nm`].
+    Uniform,
+    /// Every tumour vessel has `tumour_pore_median_nm`.
+    Fixed,
+}
+checked_plain!(PoreDistribution);
+
+/// Where the hydraulic conductivity Lp of each segment wall comes from.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum WallConductivitySource {
+    /// Pore theory: `Lp = gamma r0^2 / (8 mu Lw)` from each segment's pores.
+    Pores,
+    /// The per-type values of `[vessels.continuum]` (host and tumour wall conductivity).
+    TypeDefaults,
+}
+checked_plain!(WallConductivitySource);
+
+/// Hindrance factors of particles in cylindrical pores.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum HindranceModel {
+    /// Renkin 1954 centre-line forms.
+    Renkin,
+    /// Dechadilok and Deen 2006 fits (cross-section averaged).
+    DechadilokDeen,
+}
+checked_plain!(HindranceModel);
+
+/// Apparent viscosity of blood in a vessel of given diameter and haematocrit.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum ViscosityLaw {
+    /// Pries et al. 1994 (Circ Res 75:904), microvessels in vivo.
+    InVivo1994,
+    /// Pries et al. 1992 (Am J Physiol 263:H1770), glass tubes in vitro.
+    InVitro1992,
+}
+checked_plain!(ViscosityLaw);
+
+section! {
+    /// Explicit vessel segments (the `network` vessel model): generator or imported file,
+    /// blood-flow boundary conditions and wall properties.
+    pub struct NetworkSection {
+        /// "tumour" (capillary bed with tumour vessels), "capillary-bed", "csv" or "vtk".
+        source: NetworkSource = NetworkSource::Tumour;
+        /// Node table of a "csv" network, relative to the scenario file (see DEVELOPERS.md).
+        nodes_csv: String = String::new();
+        /// Segment table of a "csv" network, relative to the scenario file.
+        segments_csv: String = String::new();
+        /// VTK legacy polydata file of a "vtk" network, relative to the scenario file.
+        vtk_file: String = String::new();
+        /// Micrometres per coordinate unit of the VTK file.
+        vtk_length_unit_um: f64 = 1.0, Check::positive();
+        /// Accept an imported network that falls into disconnected pieces (they may be unperfused).
+        keep_disconnected: bool = false;
+        /// Distance between neighbouring capillaries of the host bed, micrometres.
+        capillary_spacing_um: f64 = 80.0, Check::closed(20.0, 1000.0);
+        /// Median radius of host capillaries, micrometres.
+        capillary_radius_um: f64 = 3.0, Check::closed(1.6, 50.0);
+        /// Standard deviation of ln(radius) of host capillaries.
+        capillary_radius_spread: f64 = 0.1, Check::closed(0.0, 1.0);
+        /// Random displacement of bed nodes, as a fraction of the spacing.
+        position_jitter: f64 = 0.25, Check::closed(0.0, 0.45);
+        /// Probability of each cross-connection between neighbouring capillaries.
+        cross_link_probability: f64 = 0.5, Check::fraction();
+        /// Axis along which blood crosses the generated bed: "x", "y" or "z".
+        flow_axis: Axis = Axis::X;
+        /// Blood pressure at the inlet face of a generated bed (and at the low end of an imported
+        /// network without boundary conditions), mmHg.
+        inlet_pressure_mmHg: f64 = 35.0, Check::closed(0.0, 200.0);
+        /// Blood pressure at the outlet face, mmHg.
+        outlet_pressure_mmHg: f64 = 15.0, Check::closed(0.0, 200.0);
+        /// Median radius of tumour vessels, micrometres.
+        tumour_radius_um: f64 = 6.0, Check::closed(1.6, 100.0);
+        /// Standard deviation of ln(radius) of tumour vessels.
+        tumour_radius_spread: f64 = 0.4, Check::closed(0.0, 1.5);
+        /// Radius of the necrotic core as a fraction of the tumour radius.
+        necrotic_core_fraction: f64 = 0.4, Check::closed(0.0, 0.95);
+        /// Fraction of vessels that survive in the necrotic core.
+        core_vessel_survival: f64 = 0.05, Check::fraction();
+        /// Thickness of the densely vascular rim as a fraction of the tumour radius.
+        rim_thickness_fraction: f64 = 0.3, Check::closed(0.0, 1.0);
+        /// Vessel density of the rim relative to the host bed.
+        rim_density_factor: f64 = 2.0, Check::closed(1.0, 10.0);
+        /// Sideways displacement of the kinks of tumour vessels, as a fraction of their length.
+        tortuosity: f64 = 0.25, Check::closed(0.0, 1.0);
+        /// Pore radius distribution of tumour vessels: "log-normal", "uniform" or "fixed".
+        tumour_pore_distribution: PoreDistribution = PoreDistribution::LogNormal;
+        /// Median (log-normal) or fixed pore radius of tumour vessels, nm.
+        tumour_pore_median_nm: f64 = 200.0, Check::closed(1.0, 5000.0);
+        /// Standard deviation of ln(pore radius) of tumour vessels.
+        tumour_pore_spread: f64 = 0.7, Check::closed(0.0, 3.0);
+        /// Smallest pore radius of tumour vessels, nm.
+        tumour_pore_min_nm: f64 = 20.0, Check::closed(1.0, 5000.0);
+        /// Largest pore radius of tumour vessels, nm.
+        tumour_pore_max_nm: f64 = 1200.0, Check::closed(1.0, 5000.0);
+        /// Fraction of tumour vessel wall area open as pores.
+        tumour_pore_fraction: f64 = 5.0e-6, Check::closed(0.0, 0.5);
+        /// Wall (pore) thickness of tumour vessels, micrometres.
+        tumour_wall_thickness_um: f64 = 1.0, Check::closed(0.01, 20.0);
+        /// Pore radius of host capillaries, nm.
+        host_pore_radius_nm: f64 = 5.0, Check::closed(0.5, 5000.0);
+        /// Fraction of host capillary wall area open as pores.
+        host_pore_fraction: f64 = 5.0e-4, Check::closed(0.0, 0.5);
+        /// Wall (pore) thickness of host capillaries, micrometres.
+        host_wall_thickness_um: f64 = 0.5, Check::closed(0.01, 20.0);
+        /// Wall hydraulic conductivity from "pores" or the "type-defaults" of [vessels.continuum].
+        wall_conductivity: WallConductivitySource = WallConductivitySource::Pores;
+        /// Hindrance factors: "dechadilok-deen" (2006) or "renkin" (1954).
+        hindrance: HindranceModel = HindranceModel::DechadilokDeen;
+        /// Apparent blood viscosity: "in-vivo-1994" or "in-vitro-1992" (Pries et al.).
+        viscosity_law: ViscosityLaw = ViscosityLaw::InVivo1994;
+        /// Segments with slower mean blood velocity count as unperfused, micrometres per second.
+        min_perfused_velocity_um_per_s: f64 = 1.0, Check::closed(0.0, 1.0e5);
+        /// Relative residual at which the blood-pressure solve stops.
+        solver_tolerance: f64 = 1.0e-11, Check::closed(1.0e-15, 1.0e-4);
+    }
+}
+
 section! {
     /// Blood vessels: which model, and its parameters.
     pub struct VesselsSection {
@@ -131,6 +283,65 @@ section! {
         model: VesselModel = VesselModel::Continuum;
         /// Parameters of the continuum model.
         continuum: ContinuumVesselsSection = ContinuumVesselsSection::default();
+        /// Parameters of the network model.
+        network: NetworkSection = NetworkSection::default();
+    }
+}
+
+section! {
+    /// The circulating blood: volume, haematocrit and plasma viscosity.
+    pub struct BloodSection {
+        /// Circulating blood volume, mL (mouse about 2 mL, human about 5000 mL; common practice).
+        volume_mL: f64 = 2.0, Check::closed(0.01, 1.0e4);
+        /// Systemic discharge haematocrit.
+        haematocrit: f64 = 0.45, Check::closed(0.0, 0.8);
+        /// Plasma viscosity, mPa s (about 1.1 to 1.3 at 37 C; common practice).
+        plasma_viscosity_mPa_s: f64 = 1.2, Check::closed(0.5, 5.0);
+    }
+}
+
+/// Where the plasma curve of a particle design comes from.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum PlasmaModel {
+    /// Renal and phagocytic clearance rates that follow from the design (size, charge, coating).
+    Design,
+    /// A given elimination half-life, optionally with a distribution phase (two compartments).
+    HalfLife,
+    /// A measured time-concentration table (`table_csv`), interpolated log-linearly.
+    Table,
+}
+checked_plain!(PlasmaModel);
+
+section! {
+    /// Plasma pharmacokinetics of one particle design.
+    pub struct PlasmaSection {
+        /// "design", "half-life" or "table".
+        model: PlasmaModel = PlasmaModel::Design;
+        /// Hydrodynamic diameter below which the kidney filters particles, nm (Choi et al. 2007).
+        renal_cutoff_diameter_nm: f64 = 5.5, Check::closed(0.5, 100.0);
+        /// Width of the renal cut-off (logistic), nm.
+        renal_cutoff_width_nm: f64 = 0.5, Check::closed(0.01, 50.0);
+        /// Plasma half-life from renal filtration well below the cut-off, minutes.
+        renal_half_life_min: f64 = 30.0, Check::closed(0.1, 1.0e5);
+        /// Phagocytic half-life of a small, neutral, bare particle, hours.
+        mps_half_life_h: f64 = 2.0, Check::closed(1.0e-3, 1.0e5);
+        /// Hydrodynamic diameter at which phagocytic clearance doubles, nm.
+        mps_size_scale_nm: f64 = 200.0, Check::closed(1.0, 1.0e4);
+        /// Exponent of the growth of phagocytic clearance with diameter.
+        mps_size_exponent: f64 = 2.0, Check::closed(0.0, 6.0);
+        /// Positive surface potential that multiplies phagocytic clearance by e, mV.
+        mps_charge_scale_mV: f64 = 20.0, Check::closed(1.0, 1000.0);
+        /// Factor on phagocytic clearance of a stealth-coated particle.
+        stealth_factor: f64 = 0.1, Check::closed(0.0, 1.0);
+        /// Elimination (terminal) half-life of the "half-life" model, hours.
+        half_life_h: f64 = 12.0, Check::closed(1.0e-3, 1.0e5);
+        /// Distribution half-life of the "half-life" model, hours (used when the fraction is > 0).
+        distribution_half_life_h: f64 = 0.5, Check::closed(1.0e-4, 1.0e5);
+        /// Fraction of the initial plasma concentration in the distribution phase (0: one compartment).
+        distribution_fraction: f64 = 0.0, Check::closed(0.0, 0.99);
+        /// Measured table of the "table" model, relative to the scenario file (see DEVELOPERS.md).
+        table_csv: String = String::new();
     }
 }
 
@@ -272,6 +483,8 @@ section! {
         convective_hindrance: f64 = 1.0, Check::closed(0.0, 1.0);
         /// Targeting ligand; absent for an untargeted design.
         ligand: Option<LigandSection> = None;
+        /// Plasma pharmacokinetics of the design.
+        plasma: PlasmaSection = PlasmaSection::default();
     }
 }
 
@@ -334,6 +547,7 @@ pub struct Scenario {
     pub transport: super::TransportSection,
     pub binding: super::BindingSection,
     pub uptake: super::UptakeSection,
+    pub blood: BloodSection,
     /// Particle designs, one `[[particle]]` table each.
     pub particle: Vec<ParticleSection>,
     pub output: OutputSection,
@@ -356,14 +570,17 @@ impl Scenario {
             SectionDoc::of::<super::TransportSection>("transport"),
             SectionDoc::of::<super::BindingSection>("binding"),
             SectionDoc::of::<super::UptakeSection>("uptake"),
+            SectionDoc::of::<NetworkSection>("vessels.network"),
+            SectionDoc::of::<BloodSection>("blood"),
             SectionDoc::of::<ParticleSection>("[[particle]]"),
             SectionDoc::of::<LigandSection>("particle.ligand"),
+            SectionDoc::of::<PlasmaSection>("particle.plasma"),
             SectionDoc::of::<OutputSection>("output"),
         ]
     }
 
     /// Range checks of every key, then consistency checks between sections.
-    pub fn problems(&self, _file: Option<&std::path::Path>) -> Vec<Problem> {
+    pub fn problems(&self, file: Option<&std::path::Path>) -> Vec<Problem> {
         let mut out = Vec::new();
         self.run.check_into("run", None, &mut out);
         self.lattice.check_into("lattice", None, &mut out);
@@ -377,12 +594,14 @@ impl Scenario {
         self.transport.check_into("transport", None, &mut out);
         self.binding.check_into("binding", None, &mut out);
         self.uptake.check_into("uptake", None, &mut out);
+        self.blood.check_into("blood", None, &mut out);
         self.particle.check_into("particle", None, &mut out);
         self.output.check_into("output", None, &mut out);
         if !out.is_empty() {
             return out;
         }
         self.consistency(&mut out);
+        self.vessel_consistency(file, &mut out);
         out
     }
 

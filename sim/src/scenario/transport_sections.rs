@@ -7,7 +7,7 @@ use super::spec::{Check, checked_plain, section};
 /// Model of diffusive hindrance by the matrix.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]
-pub enum HindranceModel {
+pub enum MatrixHindrance {
     /// Steric (Ogston 1973) times hydrodynamic (Brinkman; Phillips, Deen and Brady 1989), as combined by Phillips 2000.
     OgstonBrinkman,
     /// Steric hindrance alone (Ogston 1973).
@@ -15,7 +15,7 @@ pub enum HindranceModel {
     /// No hindrance: `D = D0`.
     None,
 }
-checked_plain!(HindranceModel);
+checked_plain!(MatrixHindrance);
 
 /// Random increments of the walk.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
@@ -47,7 +47,7 @@ section! {
         /// Viscosity of interstitial fluid, mPa s (default: water at 37 C, IAPWS 2008).
         fluid_viscosity_mPa_s: f64 = 0.6913, Check::closed(0.1, 100.0);
         /// Diffusive hindrance model: "ogston-brinkman", "ogston" or "none".
-        hindrance: HindranceModel = HindranceModel::OgstonBrinkman;
+        hindrance: MatrixHindrance = MatrixHindrance::OgstonBrinkman;
         /// Steric partition into the accessible fluid (Ogston 1958): true or false.
         steric_partition: bool = true;
         /// Largest move of a packet in one sub-step, in voxel edges.

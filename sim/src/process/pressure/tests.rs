@@ -487,3 +487,22 @@ fn face_velocities_for_transport_carry_the_darcy_flux() {
     assert!(fv.x[flux.index(0, [c[0] + 6, c[1], c[2]])] > 0.0);
     assert!(fv.x[flux.index(0, [c[0] - 6, c[1], c[2]])] < 0.0);
 }
+
+#[test]
+fn the_network_vessel_model_drives_the_pressure() {
+    // The blood process builds a vessel network and inserts its WallFluid; the pressure process
+    // must use it (not the continuum one) and close the fluid balance with it.
+    let sim = scenario(
+        "[lattice]\nshape = [24, 24, 24]\nvoxel_um = 20.0\n[tumour]\nradius_um = 150.0\n[vessels]\nmodel = \"network\"\n",
+    );
+    let f = sim.world.resource::<InterstitialFluid>();
+    assert_eq!(f.solves, 1);
+    let wall = sim.world.resource::<WallFluid>();
+    let l = sim.lattice();
+    let regions = sim.world.resource::<Regions>();
+    let continuum = WallFluid::continuum(l, regions, &sim.params.continuum_vessels, &sim.params.starling);
+    assert_ne!(wall.lp_s.data, continuum.lp_s.data, "the network's wall coefficients are used");
+    assert!(f.pressure.first_non_finite().is_none());
+    assert!(f.balance.relative_error < 1e-6, "{:?}", f.balance);
+    assert!(f.balance.vessel_leakage > 0.0, "{:?}", f.balance);
+}
