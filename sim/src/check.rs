@@ -46,15 +46,24 @@ pub fn derived(loaded: &LoadedScenario) -> crate::error::SimResult<Vec<Derived>>
     // Memory: f64 fields and u8 labels per voxel, cells as entities with their components.
     let field_bytes = n * (8.0 * FIELDS_F64 as f64 + 1.0);
     let cell_bytes = cells * CELL_BYTES;
+    let pressure_bytes = crate::process::pressure::memory_estimate(l.n);
     out.push(d("memory", "fields", field_bytes / 1e6, "MB", &format!("{FIELDS_F64} f64 fields and 1 label field")));
     out.push(d("memory", "cells", cell_bytes / 1e6, "MB", "entities with kind, voxel, receptors and loads"));
     out.push(d(
         "memory",
-        "total estimate",
-        (field_bytes + cell_bytes) / 1e6,
+        "interstitial fluid",
+        pressure_bytes / 1e6,
         "MB",
-        "excluding packets and solver work space",
+        "pressure and flow fields, face fluxes, assembled system and multigrid solver",
     ));
+    out.push(d(
+        "memory",
+        "total estimate",
+        (field_bytes + cell_bytes + pressure_bytes) / 1e6,
+        "MB",
+        "excluding packets",
+    ));
+    fluid_checks(&p, &mut out);
     particle_lines(&p, &mut out);
     let steps = (p.run.end_time / p.run.time_step).ceil();
     out.push(d("time", "time step", p.run.time_step, "s", "requested"));
@@ -62,6 +71,99 @@ pub fn derived(loaded: &LoadedScenario) -> crate::error::SimResult<Vec<Derived>>
     out.push(d("time", "snapshots", (p.run.end_time / p.run.snapshot_interval).ceil() + 1.0, "1", "including t = 0"));
     crate::vessels::check::derived(&p, &regions, &mut out)?;
     Ok(out)
+}
+
+/// The interstitial fluid numbers of Baxter and Jain 1989 (Microvasc Res 37:77): for a uniform
+/// spherical tumour of radius `R` without working lymphatics, `alpha = R sqrt((Lp S/V) / K)`;
+/// the pressure is flat near `pe = p_v - sigma_T (pi_v - pi_i)` inside and drops to the rim over
+/// the length `R / alpha = sqrt(K / (Lp S/V))`, with `p(0) = pe (1 - alpha / sinh alpha)` when
+/// `p(R) = 0`.
+fn fluid_checks(p: &Params, out: &mut Vec<Derived>) {
+    use crate::units::{MMHG, cm2_per_mmhg_s};
+    let k = |r: usize| match p.fluid.conductivity {
+        crate::scenario::ConductivityModel::Table => p.fluid.region_conductivity[r],
+        crate::scenario::ConductivityModel::Matrix => crate::process::pressure::matrix_conductivity(
+            p.matrix.collagen_fraction[r],
+            p.matrix.gag_fraction[r],
+            p.matrix.collagen_fibre_radius,
+            p.matrix.gag_fibre_radius,
+            p.fluid.viscosity,
+        ),
+    };
+    let per_cgs = 1.0 / cm2_per_mmhg_s(1.0);
+    let model = match p.fluid.conductivity {
+        crate::scenario::ConductivityModel::Table => "from the [fluid] table",
+        crate::scenario::ConductivityModel::Matrix => "Jackson-James 1986 from the matrix fractions",
+    };
+    for (r, name) in [(0, "host"), (1, "tumour")] {
+        out.push(d(
+            "fluid",
+            &format!("K {name}"),
+            k(r) * per_cgs,
+            "cm2/(mmHg s)",
+            &format!("{model}; {:.3e} m^2/(Pa s)", k(r)),
+        ));
+    }
+    let network = p.vessel_model == crate::scenario::VesselModel::Network;
+    let note = if network { " (continuum values; the network model sets its own)" } else { "" };
+    let c = &p.continuum_vessels;
+    let lps_v = |r: usize| c.wall_conductivity[r] * c.surface_per_volume[r];
+    let pe = |r: usize| c.vascular_pressure - p.starling.oncotic_term(r);
+    out.push(d(
+        "fluid",
+        "effective pressure pe tumour",
+        pe(1) / MMHG,
+        "mmHg",
+        &format!("p_v - sigma_T (pi_v - pi_i){note}"),
+    ));
+    let radius = p.tumour.equivalent_radius();
+    if lps_v(1) > 0.0 {
+        let width = (k(1) / lps_v(1)).sqrt();
+        let alpha = radius / width;
+        out.push(d(
+            "fluid",
+            "alpha",
+            alpha,
+            "1",
+            &format!("R sqrt((Lp S/V) / K) with R = {:.1} um{note}", radius * 1e6),
+        ));
+        out.push(d(
+            "fluid",
+            "pressure drop width at rim",
+            width * 1e6,
+            "um",
+            &format!("R / alpha: e-folding width of the drop at the rim; {:.1} voxels", width / p.lattice.h),
+        ));
+        if width < 2.0 * p.lattice.h {
+            out.push(d(
+                "fluid",
+                "rim resolution",
+                width / p.lattice.h,
+                "voxels",
+                "under 2 voxels: the rim is not resolved",
+            ));
+        }
+        let centre = if alpha > 700.0 { pe(1) } else { pe(1) * (1.0 - alpha / alpha.sinh()) };
+        out.push(d(
+            "fluid",
+            "centre pressure",
+            centre / MMHG,
+            "mmHg",
+            "pe (1 - alpha / sinh alpha), p(R) = 0, no tumour lymphatics",
+        ));
+    }
+    let lym = p.lymphatics.drainage[0];
+    let denom = lps_v(0) + lym;
+    if denom > 0.0 {
+        let host = (lps_v(0) * pe(0) + lym * p.lymphatics.pressure) / denom;
+        out.push(d(
+            "fluid",
+            "host equilibrium pressure",
+            host / MMHG,
+            "mmHg",
+            "(Lp S/V pe + LpL SL/V p_L) / (Lp S/V + LpL SL/V), host",
+        ));
+    }
 }
 
 /// Per design: diffusion, hindrance, binding numbers and the time step the walk needs.

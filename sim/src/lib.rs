@@ -18,6 +18,7 @@ pub mod progress;
 pub mod provenance;
 pub mod rng;
 pub mod scenario;
+pub mod solver;
 pub mod terrain;
 pub mod tissue;
 pub mod units;

@@ -3,8 +3,8 @@
 use bevy_ecs::prelude::Resource;
 
 use crate::lattice::Lattice;
-use crate::scenario::{Scenario, TumourShape};
-use crate::units::{CM, HOUR, MMHG, NM, UM, cm_per_mmhg_s};
+use crate::scenario::{ConductivityModel, FluidBoundary, LymphaticCollapse, Scenario, TumourShape};
+use crate::units::{CM, HOUR, MMHG, NM, UM, cm_per_mmhg_s, cm2_per_mmhg_s, per_mmhg_s};
 
 /// Run control.
 #[derive(Resource, Debug, Clone, PartialEq)]
@@ -114,6 +114,38 @@ pub struct ContinuumVesselParams {
     pub pore_radius: [f64; 2],
     /// Wall thickness (pore length), m.
     pub wall_thickness: f64,
+}
+
+/// Interstitial fluid flow and its solver.
+#[derive(Resource, Debug, Clone, PartialEq)]
+pub struct FluidParams {
+    pub conductivity: ConductivityModel,
+    /// Viscosity of interstitial fluid, Pa s.
+    pub viscosity: f64,
+    /// Hydraulic conductivity per region when `conductivity` is a table, m^2/(Pa s), host and tumour.
+    pub region_conductivity: [f64; 2],
+    pub boundary: FluidBoundary,
+    /// Pressure on the box faces for a fixed boundary, Pa.
+    pub boundary_pressure: f64,
+    /// Relative residual at which a solve stops.
+    pub tolerance: f64,
+    pub max_iterations: usize,
+}
+
+/// Lymphatic drainage.
+#[derive(Resource, Debug, Clone, PartialEq)]
+pub struct LymphaticParams {
+    /// `LpL SL/V` where lymphatics work, 1/(Pa s), host and tumour.
+    pub drainage: [f64; 2],
+    /// Lymph pressure, Pa.
+    pub pressure: f64,
+    pub collapse: LymphaticCollapse,
+    /// Depth of the draining tumour rim, m.
+    pub functional_rim: f64,
+    /// Cell density above which tumour lymphatics collapse.
+    pub collapse_cell_density: f64,
+    /// Half-width of the density cube, m.
+    pub density_half_width: f64,
 }
 
 /// The circulating blood.
@@ -239,6 +271,8 @@ pub struct Params {
     pub starling: StarlingParams,
     pub vessel_model: crate::scenario::VesselModel,
     pub continuum_vessels: ContinuumVesselParams,
+    pub fluid: FluidParams,
+    pub lymphatics: LymphaticParams,
     pub network: NetworkParams,
     pub blood: BloodParams,
     /// Plasma pharmacokinetics of each particle design, in species order.
@@ -327,6 +361,29 @@ impl Params {
                     vascular_pressure: c.vascular_pressure_mmHg * MMHG,
                     pore_radius: [c.host_pore_radius_nm * NM, c.tumour_pore_radius_nm * NM],
                     wall_thickness: c.wall_thickness_um * UM,
+                }
+            },
+            fluid: FluidParams {
+                conductivity: s.fluid.conductivity,
+                viscosity: s.fluid.viscosity_mPa_s * 1e-3,
+                region_conductivity: [
+                    cm2_per_mmhg_s(s.fluid.host_conductivity_cm2_per_mmHg_s),
+                    cm2_per_mmhg_s(s.fluid.tumour_conductivity_cm2_per_mmHg_s),
+                ],
+                boundary: s.fluid.boundary,
+                boundary_pressure: s.fluid.boundary_pressure_mmHg * MMHG,
+                tolerance: s.fluid.solver_tolerance,
+                max_iterations: s.fluid.solver_max_iterations as usize,
+            },
+            lymphatics: {
+                let l = &s.lymphatics;
+                LymphaticParams {
+                    drainage: [per_mmhg_s(l.host_drainage_per_mmHg_s), per_mmhg_s(l.tumour_drainage_per_mmHg_s)],
+                    pressure: l.lymph_pressure_mmHg * MMHG,
+                    collapse: l.collapse,
+                    functional_rim: l.functional_rim_um * UM,
+                    collapse_cell_density: l.collapse_cell_density,
+                    density_half_width: l.density_half_width_um * UM,
                 }
             },
             transport: crate::process::transport::TransportParams {

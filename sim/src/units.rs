@@ -39,6 +39,11 @@ pub fn cm_per_mmhg_s(v: f64) -> f64 {
     v * CM / MMHG
 }
 
+/// Converts a rate per unit pressure given in 1/(mmHg s) into 1/(Pa s).
+pub fn per_mmhg_s(v: f64) -> f64 {
+    v / MMHG
+}
+
 /// Converts a second-order rate constant given in 1/(M s) into m^3/s per pair of molecules.
 pub fn per_molar_s_to_m3_per_s(kon: f64) -> f64 {
     kon / (N_A / LITRE)

@@ -7,6 +7,7 @@ pub mod blood;
 pub mod exchange;
 pub mod output;
 pub mod plasma;
+pub mod pressure;
 pub mod transport;
 
 use bevy_ecs::prelude::*;
@@ -20,6 +21,7 @@ pub fn install(world: &mut World, schedule: &mut Schedule, params: &Params) -> S
     blood::install(world, schedule, params)?;
     plasma::install(world, schedule, params)?;
     output::install(world, schedule, params);
+    pressure::install(world, schedule, params)?;
     world.insert_resource(params.designs.clone());
     accounting::install(world);
     transport::install(world, schedule, params);

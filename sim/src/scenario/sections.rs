@@ -351,6 +351,87 @@ section! {
     }
 }
 
+/// How the hydraulic conductivity of the interstitium is set.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum ConductivityModel {
+    /// From the fibre volume fractions of `[matrix]` (Jackson and James 1986), per voxel.
+    Matrix,
+    /// One value per region, from `[fluid]`.
+    Table,
+}
+checked_plain!(ConductivityModel);
+
+/// What the faces of the lattice box do to the interstitial pressure.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum FluidBoundary {
+    /// Tissue like the boundary voxel continues outside and relaxes to its own equilibrium pressure.
+    HostEquilibrium,
+    /// The pressure `boundary_pressure_mmHg` on the faces.
+    Fixed,
+    /// No flow through the faces.
+    ZeroFlux,
+}
+checked_plain!(FluidBoundary);
+
+section! {
+    /// Interstitial fluid: steady Darcy flow with Starling sources and lymphatic sinks.
+    pub struct FluidSection {
+        /// Hydraulic conductivity: "matrix" (from the fibre fractions of the matrix section) or "table" (per region, below).
+        conductivity: ConductivityModel = ConductivityModel::Matrix;
+        /// Viscosity of interstitial fluid, mPa s (default: water at 37 C, IAPWS 2008).
+        viscosity_mPa_s: f64 = 0.6913, Check::closed(0.1, 100.0);
+        /// Hydraulic conductivity of host tissue when conductivity = "table", cm^2/(mmHg s) (default: Baxter and Jain 1989).
+        host_conductivity_cm2_per_mmHg_s: f64 = 8.53e-9, Check::closed(1.0e-14, 1.0e-3);
+        /// Hydraulic conductivity of the tumour when conductivity = "table", cm^2/(mmHg s) (default: Baxter and Jain 1989).
+        tumour_conductivity_cm2_per_mmHg_s: f64 = 4.13e-8, Check::closed(1.0e-14, 1.0e-3);
+        /// Faces of the lattice box: "host-equilibrium" (the tissue continues outside), "fixed" or "zero-flux".
+        boundary: FluidBoundary = FluidBoundary::HostEquilibrium;
+        /// Pressure on the faces of the box when boundary = "fixed", mmHg.
+        boundary_pressure_mmHg: f64 = 0.0, Check::closed(-50.0, 200.0);
+        /// Relative residual at which a pressure solve stops.
+        solver_tolerance: f64 = 1.0e-8, Check::closed(1.0e-14, 1.0e-2);
+        /// Most conjugate-gradient iterations of one pressure solve.
+        solver_max_iterations: u32 = 500, Check::count(1.0, 1.0e5);
+    }
+}
+
+/// Which tumour lymphatics are collapsed (host lymphatics always drain).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum LymphaticCollapse {
+    /// Those deeper than `functional_rim_um` below the tumour surface.
+    Depth,
+    /// Those where the local cell density exceeds `collapse_cell_density`.
+    CellDensity,
+    /// None: every tumour voxel drains.
+    None,
+}
+checked_plain!(LymphaticCollapse);
+
+section! {
+    /// Lymphatic drainage of interstitial fluid: how much, and where tumour lymphatics still work.
+    /// The default drainage is chosen, not measured: with the default vessels it settles host
+    /// tissue near 1 mmHg (normal interstitial pressure is near 0 mmHg, common practice).
+    pub struct LymphaticsSection {
+        /// Lymphatic filtration coefficient times lymphatic surface per volume (LpL SL/V) in host tissue, 1/(mmHg s).
+        host_drainage_per_mmHg_s: f64 = 4.0e-5, Check::closed(0.0, 1.0);
+        /// The same in tumour tissue where its lymphatics work, 1/(mmHg s).
+        tumour_drainage_per_mmHg_s: f64 = 4.0e-5, Check::closed(0.0, 1.0);
+        /// Pressure inside the lymphatics, mmHg.
+        lymph_pressure_mmHg: f64 = 0.0, Check::closed(-20.0, 50.0);
+        /// Collapsed tumour lymphatics: "depth", "cell-density" or "none".
+        collapse: LymphaticCollapse = LymphaticCollapse::Depth;
+        /// Depth below the tumour surface within which tumour lymphatics drain (collapse = "depth"), um.
+        functional_rim_um: f64 = 50.0, Check::closed(0.0, 1.0e5);
+        /// Fraction of voxels holding a cell, over a cube around the voxel, above which tumour lymphatics collapse (collapse = "cell-density").
+        collapse_cell_density: f64 = 0.8, Check::fraction();
+        /// Half-width of that cube, um (rounded to whole voxels).
+        density_half_width_um: f64 = 40.0, Check::closed(0.0, 1.0e4);
+    }
+}
+
 /// Surface coating of a particle.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]
@@ -467,6 +548,8 @@ pub struct Scenario {
     pub cells: CellsSection,
     pub starling: StarlingSection,
     pub vessels: VesselsSection,
+    pub fluid: FluidSection,
+    pub lymphatics: LymphaticsSection,
     pub transport: super::TransportSection,
     pub binding: super::BindingSection,
     pub uptake: super::UptakeSection,
@@ -488,6 +571,8 @@ impl Scenario {
             SectionDoc::of::<StarlingSection>("starling"),
             SectionDoc::of::<VesselsSection>("vessels"),
             SectionDoc::of::<ContinuumVesselsSection>("vessels.continuum"),
+            SectionDoc::of::<FluidSection>("fluid"),
+            SectionDoc::of::<LymphaticsSection>("lymphatics"),
             SectionDoc::of::<super::TransportSection>("transport"),
             SectionDoc::of::<super::BindingSection>("binding"),
             SectionDoc::of::<super::UptakeSection>("uptake"),
@@ -510,6 +595,8 @@ impl Scenario {
         self.cells.check_into("cells", None, &mut out);
         self.starling.check_into("starling", None, &mut out);
         self.vessels.check_into("vessels", None, &mut out);
+        self.fluid.check_into("fluid", None, &mut out);
+        self.lymphatics.check_into("lymphatics", None, &mut out);
         self.transport.check_into("transport", None, &mut out);
         self.binding.check_into("binding", None, &mut out);
         self.uptake.check_into("uptake", None, &mut out);
@@ -576,6 +663,7 @@ impl Scenario {
                 line: None,
             });
         }
+        self.fluid_consistency(out);
         let l = &self.lattice;
         let voxels: f64 = l.shape.iter().map(|&n| n as f64).product();
         if voxels > 2.0e9 {
@@ -618,6 +706,30 @@ impl Scenario {
                 });
                 break;
             }
+        }
+    }
+}
+
+impl Scenario {
+    /// The interstitial pressure must be tied down somewhere: by the box faces, vessel walls or
+    /// lymphatics (otherwise the Darcy problem is singular).
+    fn fluid_consistency(&self, out: &mut Vec<Problem>) {
+        if self.fluid.boundary != FluidBoundary::ZeroFlux || self.vessels.model != VesselModel::Continuum {
+            return;
+        }
+        let c = &self.vessels.continuum;
+        let walls = c.host_surface_per_volume_per_cm * c.host_wall_conductivity_cm_per_mmHg_s
+            + c.tumour_surface_per_volume_per_cm * c.tumour_wall_conductivity_cm_per_mmHg_s;
+        let lymph = self.lymphatics.host_drainage_per_mmHg_s + self.lymphatics.tumour_drainage_per_mmHg_s;
+        if walls == 0.0 && lymph == 0.0 {
+            out.push(Problem {
+                path: "fluid.boundary".into(),
+                value: "\"zero-flux\"".into(),
+                expected: "\"host-equilibrium\" or \"fixed\" when no vessel wall and no lymphatic exchanges fluid \
+                           (vessels.continuum and lymphatics are all zero): the pressure would be undetermined"
+                    .into(),
+                line: None,
+            });
         }
     }
 }
