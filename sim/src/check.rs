@@ -101,7 +101,13 @@ fn particle_lines(p: &Params, out: &mut Vec<Derived>) {
             let vacc = p.matrix.porosity[1] * p.lattice.voxel_volume();
             let k_capture = k.kon_eff * receptors / vacc;
             let pen = (d_region[1] / k_capture).sqrt();
-            out.push(dd(sec, &format!("{name}: capture rate"), k_capture, "1/s", "valency kon R / V_acc in the tumour"));
+            out.push(dd(
+                sec,
+                &format!("{name}: capture rate"),
+                k_capture,
+                "1/s",
+                "valency kon R / V_acc in the tumour",
+            ));
             out.push(dd(sec, &format!("{name}: penetration length"), pen, "m", "sqrt(D / capture rate), tumour"));
             out.push(dd(
                 sec,
