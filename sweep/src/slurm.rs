@@ -366,7 +366,10 @@ pub fn submit(folder: &Folder, opts: &SubmitOptions, est: Option<&Estimate>) -> 
     let subs_path = slurm_dir.join("submissions.csv");
     let mut record = std::fs::read_to_string(&subs_path)
         .unwrap_or_else(|_| "submission,job_id,offset,indices,time,mem,cpus_per_task,submitted_unix_s\n".into());
-    let mut k = record.lines().count().saturating_sub(1);
+    // Scripts are numbered on: array-000.sh, array-001.sh... (dry runs included).
+    let mut k = std::fs::read_dir(&slurm_dir)
+        .map(|rd| rd.flatten().filter(|e| e.file_name().to_string_lossy().starts_with("array-")).count())
+        .unwrap_or(0);
     for (offset, idx) in chunks {
         let local: Vec<usize> = idx.iter().map(|i| i - offset).collect();
         let array = array_spec(&local);
