@@ -56,7 +56,10 @@ fn local_runner_resumes_retries_and_gives_the_same_table_for_any_threads() {
     )
     .unwrap();
     let out = ok(&["collect", s(&a)]);
-    assert!(out.contains("5 finished") && out.contains("1 interrupted") && out.contains("run 4 interrupted: attempt 1"), "{out}");
+    assert!(
+        out.contains("5 finished") && out.contains("1 interrupted") && out.contains("run 4 interrupted: attempt 1"),
+        "{out}"
+    );
     let out = ok(&["run", s(&a)]);
     assert!(out.contains("1 executed now (1 finished"), "{out}");
     let st = std::fs::read_to_string(run4.join("status.toml")).unwrap();
@@ -67,7 +70,10 @@ fn local_runner_resumes_retries_and_gives_the_same_table_for_any_threads() {
     std::fs::write(run2.join("scenario.toml"), "[run]\nend_time_h = -1.0\n").unwrap();
     std::fs::remove_file(run2.join("status.toml")).unwrap();
     let out = fails(&["run", s(&a)]);
-    assert!(out.contains("run 2 failed: ") && out.contains("run.end_time_h") && out.contains("1 of 6 runs failed"), "{out}");
+    assert!(
+        out.contains("run 2 failed: ") && out.contains("run.end_time_h") && out.contains("1 of 6 runs failed"),
+        "{out}"
+    );
     let out = ok(&["collect", s(&a)]);
     assert!(out.contains("1 failed") && out.contains("run 2 failed: "), "{out}");
     // Preparing from the sweep file restores the scenario; the failed run is skipped until asked.
@@ -85,7 +91,10 @@ fn local_runner_resumes_retries_and_gives_the_same_table_for_any_threads() {
     let tb = std::fs::read_to_string(b.join("aggregate/table.csv")).unwrap();
     assert_eq!(ta, tb);
     let header = ta.lines().next().unwrap();
-    assert!(header.starts_with("run,state,seed,particle[0].hydrodynamic_radius_nm,particle[0].ligand.kon_per_M_s,"), "{header}");
+    assert!(
+        header.starts_with("run,state,seed,particle[0].hydrodynamic_radius_nm,particle[0].ligand.kon_per_M_s,"),
+        "{header}"
+    );
     assert!(header.contains(",cancer_cells,") && header.contains(",np:tumour_percent_id,"), "{header}");
     assert_eq!(ta.lines().count(), 7);
     assert!(ta.lines().skip(1).all(|l| l.split(',').nth(1) == Some("finished")));
@@ -145,17 +154,35 @@ fn plan_dry_run_script_and_typed_errors() {
     // A dry run writes the job array script without Slurm.
     let tmp = tempfile::tempdir().unwrap();
     let d = tmp.path().join("d");
-    let out = ok(&["submit", "configs/sweep-sizes.toml", "--out", s(&d), "--dry-run", "--throttle", "2", "--cpus-per-task", "2"]);
+    let out = ok(&[
+        "submit",
+        "configs/sweep-sizes.toml",
+        "--out",
+        s(&d),
+        "--dry-run",
+        "--throttle",
+        "2",
+        "--cpus-per-task",
+        "2",
+    ]);
     assert!(out.contains("dry run: 6 runs (0-5) not submitted"), "{out}");
     let script = std::fs::read_to_string(d.join("slurm/array-000.sh")).unwrap();
-    for want in ["#SBATCH --array=0-5%2\n", "#SBATCH --time=00:05:00\n", "#SBATCH --mem=256M\n", "#SBATCH --cpus-per-task=2\n"] {
+    for want in
+        ["#SBATCH --array=0-5%2\n", "#SBATCH --time=00:05:00\n", "#SBATCH --mem=256M\n", "#SBATCH --cpus-per-task=2\n"]
+    {
         assert!(script.contains(want), "{want:?} missing from\n{script}");
     }
-    assert!(script.contains(&format!("sweep task '{}' --offset 0 --threads \"${{SLURM_CPUS_PER_TASK:-2}}\"", d.display())), "{script}");
+    assert!(
+        script.contains(&format!("sweep task '{}' --offset 0 --threads \"${{SLURM_CPUS_PER_TASK:-2}}\"", d.display())),
+        "{script}"
+    );
     let out = ok(&["submit", s(&d), "--dry-run", "--time", "1:00:00", "--mem", "1G", "--runs", "1,3-4"]);
     assert!(out.contains("dry run: 3 runs (1,3-4) not submitted"), "{out}");
     let script = std::fs::read_to_string(d.join("slurm/array-001.sh")).unwrap();
-    assert!(script.contains("--array=1,3-4\n") && script.contains("--time=1:00:00\n") && script.contains("--mem=1G\n"), "{script}");
+    assert!(
+        script.contains("--array=1,3-4\n") && script.contains("--time=1:00:00\n") && script.contains("--mem=1G\n"),
+        "{script}"
+    );
 
     // Bad input: typed errors with the file, line and key, never a panic.
     let bad = tmp.path().join("bad.toml");
@@ -169,7 +196,10 @@ fn plan_dry_run_script_and_typed_errors() {
     assert!(e.contains("bad.toml:10: `parameter[0].max` = 1.5: expected a finite number in (0, 1]"), "{e}");
     std::fs::write(&bad, format!("[sweep]\nname = \"bad\"\nscenario = \"{}\"\ndesign = \"list\"\n\n[[parameter]]\nkey = \"tumour.radius_um\"\nvalues = [90.0, 200.0]\n", base.display())).unwrap();
     let e = fails(&["run", s(&bad), "--out", s(&tmp.path().join("x"))]);
-    assert!(e.contains("run 1 (tumour.radius_um = 200.0): its scenario is not valid") && e.contains("caused by:"), "{e}");
+    assert!(
+        e.contains("run 1 (tumour.radius_um = 200.0): its scenario is not valid") && e.contains("caused by:"),
+        "{e}"
+    );
     let e = fails(&["task", s(&d)]);
     assert!(e.contains("SLURM_ARRAY_TASK_ID"), "{e}");
     let e = fails(&["collect", s(tmp.path())]);

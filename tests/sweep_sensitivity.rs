@@ -44,7 +44,15 @@ fn write_table(path: &Path, x: &[Vec<f64>], y: &[f64]) {
     std::fs::write(path, s).unwrap();
 }
 
-fn row(index: &'static str, method: &'static str, p: usize, p2: Option<usize>, value: f64, conf: f64, n: usize) -> SensitivityRow {
+fn row(
+    index: &'static str,
+    method: &'static str,
+    p: usize,
+    p2: Option<usize>,
+    value: f64,
+    conf: f64,
+    n: usize,
+) -> SensitivityRow {
     SensitivityRow {
         output: "y".into(),
         method,
@@ -150,8 +158,8 @@ fn morris_indices_match_salib_and_linear_effects() {
     let c = [2.0, -0.5, 0.0];
     let y: Vec<f64> = u.iter().map(|x| x.iter().zip(c).map(|(a, b)| a * b).sum()).collect();
     let m = sensitivity::morris(&u, &y, d, levels, 100, 0.95, &mut bootstrap_stream(1, 0));
-    for k in 0..d {
-        assert!((m.mu[k] - c[k]).abs() < 1e-12 && (m.mu_star[k] - c[k].abs()).abs() < 1e-12 && m.sigma[k] < 1e-12);
+    for (k, ck) in c.iter().enumerate() {
+        assert!((m.mu[k] - ck).abs() < 1e-12 && (m.mu_star[k] - ck.abs()).abs() < 1e-12 && m.sigma[k] < 1e-12);
     }
     // Ishigami on the Morris design, compared with SALib's morris.analyze.
     let x = to_range(&u);

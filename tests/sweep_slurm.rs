@@ -67,7 +67,11 @@ fn ok(cluster: &Cluster, args: &[&str]) -> String {
 fn wait_for(cluster: &Cluster, what: &str, secs: u64, mut cond: impl FnMut() -> bool) {
     let t = Instant::now();
     while !cond() {
-        assert!(t.elapsed() < Duration::from_secs(secs), "timed out after {secs} s waiting for {what}\n{}", cluster.log_tail());
+        assert!(
+            t.elapsed() < Duration::from_secs(secs),
+            "timed out after {secs} s waiting for {what}\n{}",
+            cluster.log_tail()
+        );
         std::thread::sleep(Duration::from_millis(50));
     }
 }
@@ -144,7 +148,9 @@ fn slurm_job_array_with_a_cancelled_task_matches_the_local_sweep() {
 
     // Cancel task 1 while its run executes (the task marked it running and its run file exists).
     let run_file = dir.join("runs/000001/cluster-000001.h5");
-    wait_for(&cluster, "run 1 to be executing", 120, || status(&dir, 1).contains("state = \"running\"") && run_file.exists());
+    wait_for(&cluster, "run 1 to be executing", 120, || {
+        status(&dir, 1).contains("state = \"running\"") && run_file.exists()
+    });
     assert!(!status(&dir, 1).contains("finished"), "run 1 finished before it could be cancelled: lengthen the runs");
     let out = run(&cluster, Path::new("scancel"), &[&format!("{job}_1")]);
     assert!(out.status.success(), "scancel: {}", String::from_utf8_lossy(&out.stderr));
@@ -172,5 +178,7 @@ fn slurm_job_array_with_a_cancelled_task_matches_the_local_sweep() {
     let a = std::fs::read_to_string(local.join("aggregate/table.csv")).unwrap();
     let b = std::fs::read_to_string(dir.join("aggregate/table.csv")).unwrap();
     assert_eq!(a, b, "the Slurm sweep's table differs from the local one");
-    eprintln!("Slurm sweep: 3 runs of {hours} simulated hours, task {job}_1 cancelled and resubmitted as {job2}; table equal to the local one");
+    eprintln!(
+        "Slurm sweep: 3 runs of {hours} simulated hours, task {job}_1 cancelled and resubmitted as {job2}; table equal to the local one"
+    );
 }

@@ -110,7 +110,7 @@ pub fn aggregate(folder: &Folder, args: &AnalysisArgs) -> Result<Aggregate> {
         })
     };
     let mut unfinished = 0;
-    for i in 0..n {
+    for (i, row) in per_run.iter_mut().enumerate() {
         let st = folder.state(i, &|_| None);
         states.push(st.word().to_string());
         if st != RunState::Finished {
@@ -120,7 +120,6 @@ pub fn aggregate(folder: &Folder, args: &AnalysisArgs) -> Result<Aggregate> {
         let (_, m) = interstice_analysis::cli::load(&folder.run_file(i), args)
             .map_err(|source| SweepError::Metrics { index: i, source })?;
         let last_t = m.snapshots.last().map(|s| s.time_s);
-        let row = &mut per_run[i];
         if let Some(t) = last_t {
             let c = add(&mut names, "final_time".into(), "s", "time of the last finished snapshot".into());
             row.push((c, t));
@@ -271,7 +270,7 @@ fn sensitivity_rows(folder: &Folder, columns: &[Column], notes: &mut Vec<String>
                         m.trajectories, spec.samples
                     ));
                 }
-                for k in 0..d {
+                for (k, name) in names.iter().enumerate() {
                     for (idx, v, c) in [
                         ("mu", m.mu[k], f64::NAN),
                         ("mu_star", m.mu_star[k], m.mu_star_conf[k]),
@@ -281,7 +280,7 @@ fn sensitivity_rows(folder: &Folder, columns: &[Column], notes: &mut Vec<String>
                             output: o.clone(),
                             method: "morris",
                             index: idx,
-                            parameter: names[k].clone(),
+                            parameter: name.clone(),
                             parameter2: String::new(),
                             value: v,
                             conf: c,
@@ -301,13 +300,13 @@ fn sensitivity_rows(folder: &Folder, columns: &[Column], notes: &mut Vec<String>
                 if s.constant {
                     notes.push(format!("{o}: the output is the same in every run: its indices are 0"));
                 }
-                for k in 0..d {
+                for (k, name) in names.iter().enumerate() {
                     for (idx, v, c) in [("S1", s.s1[k], s.s1_conf[k]), ("ST", s.st[k], s.st_conf[k])] {
                         rows.push(SensitivityRow {
                             output: o.clone(),
                             method: "sobol",
                             index: idx,
-                            parameter: names[k].clone(),
+                            parameter: name.clone(),
                             parameter2: String::new(),
                             value: v,
                             conf: c,

@@ -41,7 +41,9 @@ fn grid_counts_every_combination_first_parameter_slowest() {
 
 #[test]
 fn run_seeds_are_derived_from_the_sweep_seed_and_index() {
-    let p = plan(&format!("{HEAD}design = \"list\"\nseed = 99\n\n[[parameter]]\nkey = \"tumour.radius_um\"\nvalues = [80.0, 90.0, 100.0]\n"));
+    let p = plan(&format!(
+        "{HEAD}design = \"list\"\nseed = 99\n\n[[parameter]]\nkey = \"tumour.radius_um\"\nvalues = [80.0, 90.0, 100.0]\n"
+    ));
     for (i, r) in p.runs.iter().enumerate() {
         assert_eq!(r.seed, stream_key(99, Domain::Sweep, i as u64, 0) >> 1);
     }
@@ -50,7 +52,8 @@ fn run_seeds_are_derived_from_the_sweep_seed_and_index() {
     ));
     assert!(shared.runs.iter().all(|r| r.seed == 99));
     // Without `seed`, the base scenario's run.seed (4242 in sweep-base.toml).
-    let base = plan(&format!("{HEAD}design = \"list\"\n\n[[parameter]]\nkey = \"tumour.radius_um\"\nvalues = [80.0]\n"));
+    let base =
+        plan(&format!("{HEAD}design = \"list\"\n\n[[parameter]]\nkey = \"tumour.radius_um\"\nvalues = [80.0]\n"));
     assert_eq!(base.spec.seed, 4242);
 }
 
@@ -80,14 +83,14 @@ fn latin_hypercube_hits_each_stratum_once_and_stays_in_range() {
         strata.sort_unstable();
         assert_eq!(strata, (0..n).collect::<Vec<_>>(), "dimension {k}");
     }
-    for i in 0..n {
+    for (i, row) in unit.iter().enumerate() {
         let r = p.numeric(i, 0);
         let kon = p.numeric(i, 1);
         assert!((60.0..=110.0).contains(&r));
         assert!((1e3..=1e7).contains(&kon));
         // Log scale: the stratum of log10(kon) is the stratum of its unit coordinate.
         let u = (kon.log10() - 3.0) / 4.0;
-        assert!((u - unit[i][1]).abs() < 1e-12);
+        assert!((u - row[1]).abs() < 1e-12);
     }
 }
 
@@ -97,7 +100,10 @@ fn expansion_is_deterministic_and_depends_on_the_seed() {
     let a = plan(&t);
     let b = plan(&t);
     assert_eq!(a.runs, b.runs);
-    assert_eq!((0..a.runs.len()).map(|i| a.scenario_text(i)).collect::<Vec<_>>(), (0..b.runs.len()).map(|i| b.scenario_text(i)).collect::<Vec<_>>());
+    assert_eq!(
+        (0..a.runs.len()).map(|i| a.scenario_text(i)).collect::<Vec<_>>(),
+        (0..b.runs.len()).map(|i| b.scenario_text(i)).collect::<Vec<_>>()
+    );
     let c = plan(&t.replace("seed = 8", "seed = 9"));
     assert_ne!(a.runs, c.runs);
 }
@@ -147,13 +153,18 @@ fn problems(text: &str) -> String {
 #[test]
 fn bad_sweep_files_name_file_line_key_and_allowed_range() {
     // A range outside the key's own range (tumour_porosity is in (0, 1]).
-    let e = problems(&format!("{HEAD}design = \"latin-hypercube\"\nsamples = 4\n\n[[parameter]]\nkey = \"matrix.tumour_porosity\"\nmin = 0.2\nmax = 1.5\n"));
+    let e = problems(&format!(
+        "{HEAD}design = \"latin-hypercube\"\nsamples = 4\n\n[[parameter]]\nkey = \"matrix.tumour_porosity\"\nmin = 0.2\nmax = 1.5\n"
+    ));
     assert!(e.contains("test-sweep.toml:10: `parameter[0].max` = 1.5: expected a finite number in (0, 1]"), "{e}");
     // An unknown key, with the section's keys listed.
-    let e = problems(&format!("{HEAD}design = \"grid\"\n\n[[parameter]]\nkey = \"matrix.tumour_porosity_percent\"\nvalues = [1.0]\n"));
+    let e = problems(&format!(
+        "{HEAD}design = \"grid\"\n\n[[parameter]]\nkey = \"matrix.tumour_porosity_percent\"\nvalues = [1.0]\n"
+    ));
     assert!(e.contains(":7: `parameter[0].key`") && e.contains("one of the keys of [matrix]"), "{e}");
     // Values on a sampled design; samples missing.
-    let e = problems(&format!("{HEAD}design = \"morris\"\n\n[[parameter]]\nkey = \"tumour.radius_um\"\nvalues = [1.0]\n"));
+    let e =
+        problems(&format!("{HEAD}design = \"morris\"\n\n[[parameter]]\nkey = \"tumour.radius_um\"\nvalues = [1.0]\n"));
     assert!(e.contains("`sweep.samples`") && e.contains("`parameter[0].values`"), "{e}");
     // Unknown key in [sweep].
     let e = problems(&format!("{HEAD}design = \"grid\"\nthreads = 4\n"));
@@ -162,13 +173,19 @@ fn bad_sweep_files_name_file_line_key_and_allowed_range() {
     let e = problems(&format!("{HEAD}design = \"grid\"\n\n[[parameter]]\nkey = \"run.seed\"\nvalues = [1]\n"));
     assert!(e.contains("the sweep sets them"), "{e}");
     // A log range must be positive.
-    let e = problems(&format!("{HEAD}design = \"latin-hypercube\"\nsamples = 3\n\n[[parameter]]\nkey = \"cells.cancer_receptors_per_cell\"\nmin = 0.0\nmax = 1.0e5\nscale = \"log\"\n"));
+    let e = problems(&format!(
+        "{HEAD}design = \"latin-hypercube\"\nsamples = 3\n\n[[parameter]]\nkey = \"cells.cancer_receptors_per_cell\"\nmin = 0.0\nmax = 1.0e5\nscale = \"log\"\n"
+    ));
     assert!(e.contains("`parameter[0].min` = 0: expected a number above 0 with scale = \"log\""), "{e}");
     // Lists of unequal length in the list design.
-    let e = problems(&format!("{HEAD}design = \"list\"\n\n[[parameter]]\nkey = \"tumour.radius_um\"\nvalues = [80.0, 90.0]\n\n[[parameter]]\nkey = \"matrix.tumour_porosity\"\nvalues = [0.3]\n"));
+    let e = problems(&format!(
+        "{HEAD}design = \"list\"\n\n[[parameter]]\nkey = \"tumour.radius_um\"\nvalues = [80.0, 90.0]\n\n[[parameter]]\nkey = \"matrix.tumour_porosity\"\nvalues = [0.3]\n"
+    ));
     assert!(e.contains("`parameter[1].values` = 1 values: expected 2 values"), "{e}");
     // An index the base scenario does not have.
-    let e = problems(&format!("{HEAD}design = \"grid\"\n\n[[parameter]]\nkey = \"particle[3].hydrodynamic_radius_nm\"\nvalues = [10.0]\n"));
+    let e = problems(&format!(
+        "{HEAD}design = \"grid\"\n\n[[parameter]]\nkey = \"particle[3].hydrodynamic_radius_nm\"\nvalues = [10.0]\n"
+    ));
     assert!(e.contains("`particle[3]` does not exist"), "{e}");
 }
 
@@ -176,7 +193,9 @@ fn bad_sweep_files_name_file_line_key_and_allowed_range() {
 fn a_generated_scenario_that_fails_engine_validation_names_its_run() {
     // Each radius is a valid key value, but a 200 um tumour does not fit the 240 um lattice:
     // the engine's consistency check rejects run 1 only.
-    let e = problems(&format!("{HEAD}design = \"list\"\n\n[[parameter]]\nkey = \"tumour.radius_um\"\nvalues = [90.0, 200.0]\n"));
+    let e = problems(&format!(
+        "{HEAD}design = \"list\"\n\n[[parameter]]\nkey = \"tumour.radius_um\"\nvalues = [90.0, 200.0]\n"
+    ));
     assert!(e.contains("run 1 (tumour.radius_um = 200.0): its scenario is not valid"), "{e}");
     assert!(e.contains("caused by: runs/000001/scenario.toml") && e.contains("a tumour inside the lattice"), "{e}");
 }
