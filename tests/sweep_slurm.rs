@@ -155,6 +155,14 @@ fn slurm_job_array_with_a_cancelled_task_matches_the_local_sweep() {
     let out = run(&cluster, Path::new("scancel"), &[&format!("{job}_1")]);
     assert!(out.status.success(), "scancel: {}", String::from_utf8_lossy(&out.stderr));
     wait_for(&cluster, "the array to leave the queue", 180, || queue_empty(&cluster, &job));
+    // Slurm ended the task's whole process tree: no `interstice run` of run 1 is left behind.
+    let scen = dir.join("runs/000001/scenario.toml").display().to_string();
+    wait_for(&cluster, "the cancelled run's processes to end", 30, || {
+        std::fs::read_dir("/proc").unwrap().flatten().all(|e| {
+            let cmd = std::fs::read(e.path().join("cmdline")).unwrap_or_default();
+            !String::from_utf8_lossy(&cmd).contains(&scen)
+        })
+    });
 
     let out = ok(&cluster, &["sweep", "collect", d]);
     assert!(out.contains("2 finished") && out.contains("1 interrupted"), "{out}");
