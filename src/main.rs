@@ -103,6 +103,11 @@ enum Command {
         #[command(flatten)]
         analysis: AnalysisFlags,
     },
+    /// Sweeps: plan, run locally, submit to Slurm, collect, aggregate (see `interstice sweep --help`).
+    Sweep {
+        #[command(subcommand)]
+        command: interstice_sweep::cli::SweepCommand,
+    },
 }
 
 /// Options of the analysis subcommands.
@@ -218,6 +223,7 @@ fn run(cli: Cli) -> Result<(), Box<dyn std::error::Error>> {
             let path = interstice_analysis::cli::compare(&runs, &out, csv.as_deref(), &analysis.args())?;
             eprintln!("interstice: wrote {}", path.display());
         }
+        Command::Sweep { command } => interstice_sweep::cli::main(command)?,
     }
     Ok(())
 }
