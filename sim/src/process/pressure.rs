@@ -438,6 +438,9 @@ pub fn install(world: &mut World, schedule: &mut Schedule, params: &Params) -> S
     });
     world.insert_resource(DarcyFlux::zeros(lattice.n, lattice.h));
     world.insert_resource(FaceVelocity::zero(&lattice));
+    world.insert_resource(crate::process::exchange::PressureSource(|w| {
+        w.get_resource::<InterstitialFluid>().map(|f| (&f.pressure.data[..], f.solves))
+    }));
     if world.get_resource::<WallFluid>().is_some() {
         solve_now(world)?;
     }
@@ -574,6 +577,12 @@ pub fn solve_now(world: &mut World) -> SimResult<()> {
         let mut fv = world.remove_resource::<FaceVelocity>().unwrap_or_else(|| FaceVelocity::zero(&l));
         face_velocity(&l, world.resource::<DarcyFlux>(), &world.resource::<Matrix>().porosity.data, &mut fv);
         world.insert_resource(fv);
+        // Lymph flow per voxel for the particles it carries away (no flow back from lymphatics).
+        let lymph = world.resource::<Lymphatics>();
+        let vol = l.voxel_volume();
+        let q: Vec<f64> =
+            lymph.drainage.data.iter().zip(p).map(|(d, &pv)| d * vol * (pv - lymph.pressure).max(0.0)).collect();
+        world.insert_resource(crate::process::binding::LymphFlow(q));
     }
     state.seen = ticks;
     world.insert_resource(fluid);
