@@ -30,10 +30,12 @@ radius_um = 160.0
 model = "network"
 [[particle]]
 name = "lipo"
+packet_particles = 1e9
 [[particle]]
 name = "dot"
 hydrodynamic_radius_nm = 2.5
 coating = "none"
+packet_particles = 1e9
 "#;
 
 #[test]

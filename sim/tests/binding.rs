@@ -34,8 +34,12 @@ host_receptors_per_cell = {receptors}
 [binding]
 matrix_adsorption_per_s_mV = 0.0
 receptor_recycling_per_s = 0.0
+[vessels.continuum]
+host_surface_per_volume_per_cm = 0.0
+tumour_surface_per_volume_per_cm = 0.0
 [[particle]]
 name = "ab"
+dose_particles = 0.0
 packet_particles = 100.0
 surface_potential_mV = 0.0
 [particle.ligand]

@@ -44,8 +44,12 @@ host_cell_fraction = 0.0
 [transport]
 faces = "{faces}"
 max_step_voxels = {max_step}
+[vessels.continuum]
+host_surface_per_volume_per_cm = 0.0
+tumour_surface_per_volume_per_cm = 0.0
 [[particle]]
 name = "p"
+dose_particles = 0.0
 packet_particles = 1.0
 "#,
         r = n as f64 * h_um / 4.0
@@ -264,8 +268,12 @@ tumour_cell_fraction = 0.0
 host_cell_fraction = 0.0
 [transport]
 max_step_voxels = 0.5
+[vessels.continuum]
+host_surface_per_volume_per_cm = 0.0
+tumour_surface_per_volume_per_cm = 0.0
 [[particle]]
 name = "p"
+dose_particles = 0.0
 packet_particles = 1.0
 "#
     ));
