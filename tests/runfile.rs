@@ -22,6 +22,16 @@ origin_um = [-100.0, 0.0, 50.0]
 [tumour]
 shape = "ellipsoid"
 semi_axes_um = [150.0, 120.0, 100.0]
+[vessels]
+model = "network"
+[[particle]]
+name = "np"
+packet_particles = 1e6
+[particle.ligand]
+valency = 2
+internalisation_per_s = 1e-3
+[output]
+packet_tables = true
 "#;
 
 #[test]

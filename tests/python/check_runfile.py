@@ -105,6 +105,21 @@ def main():
             fail(f"series {sname} has {ds.shape[0]} values for {finished} snapshots")
     if not np.allclose(series["time_s"][:finished], times, rtol=0, atol=0):
         fail("series time_s disagrees with the snapshot times")
+    # Particle accounting (exact integers in float64 series): every injected particle is somewhere.
+    places = ["plasma", "peripheral", "cleared", "free", "bound_cells", "bound_matrix", "internalised", "drained", "left"]
+    for sname in [k[len("injected_"):] for k in series if k.startswith("injected_")]:
+        inj = series[f"injected_{sname}"][:finished]
+        total = sum(series[f"{p}_{sname}"][:finished] for p in places)
+        if not np.array_equal(inj, total):
+            fail(f"accounting of {sname} does not close: {inj} vs {total}")
+        # The per-voxel fields hold the same tissue amounts (fields are per m^3 of tissue).
+        vol = h ** 3
+        for k, name in enumerate(names[:finished]):
+            f_ = snaps[name]["fields"]
+            tissue = sum(float(np.sum(f_[f"{c}_{sname}"][()])) * vol for c in ["free", "bound", "internalised", "matrix_bound"])
+            expect = sum(float(series[f"{p}_{sname}"][k]) for p in ["free", "bound_cells", "internalised", "bound_matrix"])
+            if abs(tissue - expect) > 1e-9 * max(expect, 1.0):
+                fail(f"{name}: fields of {sname} hold {tissue} particles, the series {expect}")
     xmf = path.with_suffix(".xmf")
     if xmf.exists():
         import meshio

@@ -212,6 +212,9 @@ fn snapshot_part(world: &World, w: &mut SnapshotWriter<'_>) -> SimResult<()> {
             }
         }
     }
+    if world.resource::<crate::params::OutputParams>().packet_tables {
+        write_packet_table(packets, w)?;
+    }
     let descriptions = [
         "free particles (packets and particles held at the voxel)",
         "particles bound to cell receptors",
@@ -233,6 +236,30 @@ fn snapshot_part(world: &World, w: &mut SnapshotWriter<'_>) -> SimResult<()> {
         }
     }
     Ok(())
+}
+
+fn write_packet_table(p: &Packets, w: &mut SnapshotWriter<'_>) -> SimResult<()> {
+    use crate::io::{Column, ColumnData};
+    let x: Vec<f64> = p.pos.iter().map(|q| q[0]).collect();
+    let y: Vec<f64> = p.pos.iter().map(|q| q[1]).collect();
+    let z: Vec<f64> = p.pos.iter().map(|q| q[2]).collect();
+    w.table(
+        "packets",
+        &[
+            Column { name: "id", units: "1", description: "packet id", data: ColumnData::U64(&p.id) },
+            Column { name: "x", units: "m", description: "position x", data: ColumnData::F64(&x) },
+            Column { name: "y", units: "m", description: "position y", data: ColumnData::F64(&y) },
+            Column { name: "z", units: "m", description: "position z", data: ColumnData::F64(&z) },
+            Column { name: "voxel", units: "1", description: "linear voxel index", data: ColumnData::U32(&p.voxel) },
+            Column { name: "species", units: "1", description: "species index", data: ColumnData::U8(&p.species) },
+            Column {
+                name: "particles",
+                units: "1",
+                description: "particles in the packet",
+                data: ColumnData::U64(&p.weight),
+            },
+        ],
+    )
 }
 
 fn series_part(world: &World, out: &mut Vec<(&'static str, &'static str, f64)>) {
