@@ -30,6 +30,9 @@ enum Command {
         /// Print nothing but errors.
         #[arg(short, long)]
         quiet: bool,
+        /// Continue from the run's checkpoint in the output folder, if there is one.
+        #[arg(long)]
+        resume: bool,
     },
     /// Validate a scenario and print the derived quantities of each process.
     Check {
@@ -167,11 +170,11 @@ fn set_threads(threads: usize) -> Result<(), Box<dyn std::error::Error>> {
 
 fn run(cli: Cli) -> Result<(), Box<dyn std::error::Error>> {
     match cli.command {
-        Command::Run { scenario, out, threads, quiet } => {
+        Command::Run { scenario, out, threads, quiet, resume } => {
             set_threads(threads)?;
             let loaded = LoadedScenario::from_file(&scenario)?;
             let mut sim = Simulation::new(&loaded)?;
-            let opts = RunOptions { out_dir: out, threads, quiet };
+            let opts = RunOptions { out_dir: out, threads, quiet, resume };
             let summary = sim.run(&loaded, &opts)?;
             if !quiet {
                 eprintln!(

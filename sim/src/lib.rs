@@ -7,6 +7,7 @@
 //! ([`params::Params::resolve`]).
 
 pub mod check;
+pub mod checkpoint;
 pub mod error;
 pub mod field;
 pub mod io;

@@ -17,6 +17,8 @@ pub struct RunParams {
     pub time_step: f64,
     /// Interval between snapshots, s.
     pub snapshot_interval: f64,
+    /// Interval between checkpoints, s (0: none).
+    pub checkpoint_interval: f64,
 }
 
 /// Tumour geometry: an axis-aligned ellipsoid (a sphere has equal semi-axes).
@@ -323,6 +325,7 @@ impl Params {
                 end_time: s.run.end_time_h * HOUR,
                 time_step: s.run.time_step_s,
                 snapshot_interval: s.run.snapshot_interval_h * HOUR,
+                checkpoint_interval: s.run.checkpoint_interval_h * HOUR,
             },
             lattice,
             tumour: TumourGeometry { centre, semi_axes },

@@ -90,6 +90,8 @@ pub struct RunOptions {
     pub threads: usize,
     /// No progress output at all.
     pub quiet: bool,
+    /// Continue from the run's checkpoint when there is one (otherwise start afresh).
+    pub resume: bool,
 }
 
 /// What a finished run reports.
@@ -180,19 +182,40 @@ impl Simulation {
         Ok(())
     }
 
-    /// Runs to the end: opens the run file, writes the initial snapshot, steps, closes the file.
+    /// Runs to the end: opens the run file (or, resuming, restores the checkpoint and reopens
+    /// the file cut back to it), writes the initial snapshot, steps, writes checkpoints at their
+    /// interval, closes the file. A finished run removes its checkpoint.
     pub fn run(&mut self, loaded: &LoadedScenario, opts: &RunOptions) -> SimResult<RunSummary> {
         let started = Instant::now();
         let threads = if opts.threads == 0 { rayon::current_num_threads() } else { opts.threads };
-        let file = process::output::open_run_file(self, loaded, opts, threads)?;
+        let path = opts.out_dir.join(format!("{}.h5", self.params.run.name));
+        let ckpt = crate::checkpoint::path_for(&path);
+        let fp = crate::checkpoint::fingerprint(&loaded.text);
+        let resuming = opts.resume && ckpt.exists() && path.exists();
+        let file = if resuming {
+            let keep = crate::checkpoint::read(&mut self.world, &ckpt, &fp)?;
+            process::output::reopen_run_file(self, &path, keep)?
+        } else {
+            process::output::open_run_file(self, loaded, opts, threads)?
+        };
         let end = self.params.run.end_time;
+        let interval = self.params.run.checkpoint_interval;
+        let mut last_checkpoint = if resuming { self.world.resource::<Clock>().time } else { 0.0 };
         let mut progress = Progress::new(end, opts.quiet);
         let result = (|| -> SimResult<()> {
-            process::output::write_snapshot(&mut self.world)?;
+            if !resuming {
+                process::output::write_snapshot(&mut self.world)?;
+            }
             while !self.world.resource::<Clock>().done() {
+                let before = self.world.resource::<Clock>().snapshots;
                 self.step()?;
                 let c = self.world.resource::<Clock>();
+                let (time, snaps, done) = (c.time, c.snapshots, c.done());
                 progress.update(c.time, c.step, c.snapshots);
+                if interval > 0.0 && snaps > before && !done && time >= last_checkpoint + interval * (1.0 - 1e-9) {
+                    crate::checkpoint::write(&mut self.world, &ckpt, &fp)?;
+                    last_checkpoint = time;
+                }
             }
             Ok(())
         })();
@@ -206,6 +229,9 @@ impl Simulation {
         let steps = self.world.resource::<Clock>().step;
         process::output::close_run_file(&mut self.world, &status, wall)?;
         result?;
+        if ckpt.exists() {
+            std::fs::remove_file(&ckpt).map_err(crate::error::SimError::io(&ckpt, "cannot remove the checkpoint"))?;
+        }
         Ok(RunSummary { file, steps, snapshots, wall_time_s: wall })
     }
 }

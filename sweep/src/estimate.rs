@@ -118,7 +118,7 @@ pub fn probe(plan: &Plan, threads: usize, max_steps: u64, max_s: f64) -> Result<
             let dir = scratch(&k.to_string());
             let _ = std::fs::remove_dir_all(&dir);
             std::fs::create_dir_all(&dir).map_err(SweepError::io(&dir, "cannot create a scratch folder"))?;
-            let opts = RunOptions { out_dir: dir.clone(), threads, quiet: true };
+            let opts = RunOptions { out_dir: dir.clone(), threads, quiet: true, resume: false };
             let r = (|| -> interstice_sim::SimResult<f64> {
                 interstice_sim::process::output::open_run_file(&mut sim, &loaded, &opts, threads)?;
                 let t = Instant::now();

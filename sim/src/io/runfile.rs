@@ -147,6 +147,72 @@ impl RunWriter {
         })
     }
 
+    /// Reopens an interrupted run file to continue it after its first `keep` snapshots: later
+    /// snapshot groups are removed, the time series cut to `keep` values, and the XDMF sidecar
+    /// rebuilt from what remains. The caller restores the simulation to the state of snapshot
+    /// `keep - 1` (a checkpoint written right after it).
+    pub fn reopen(path: &Path, lattice: &Lattice, keep: u64, compression: u8, explicit_mesh: bool) -> SimResult<Self> {
+        let err = |what: &str| SimError::hdf5(path, what.to_string());
+        let file = File::open_rw(path).map_err(err("cannot reopen the run file to resume it"))?;
+        let mut xdmf = XdmfWriter::new(path, lattice, explicit_mesh);
+        (|| -> hdf5::Result<()> {
+            let root = file.as_group()?;
+            let snaps = file.group("snapshots")?;
+            let mut names = snaps.member_names()?;
+            names.sort();
+            for name in &names {
+                let idx: u64 = name.parse().unwrap_or(u64::MAX);
+                if idx >= keep {
+                    snaps.unlink(name)?;
+                    continue;
+                }
+                let g = snaps.group(name)?;
+                let t: f64 = g.attr("time_s")?.read_scalar()?;
+                let mut fields = Vec::new();
+                if let Ok(fg) = g.group("fields") {
+                    let mut fnames = fg.member_names()?;
+                    // Keep the order the fields were written in (creation order is not
+                    // tracked; the writer's order is alphabetical within each part).
+                    fnames.sort();
+                    for f in fnames {
+                        let ds = fg.dataset(&f)?;
+                        let (number_type, precision) =
+                            if ds.dtype()?.size() == 1 { ("UChar", 1) } else { ("Float", 8) };
+                        fields.push(XdmfField {
+                            h5path: format!("/snapshots/{name}/fields/{f}"),
+                            name: f,
+                            number_type,
+                            precision,
+                        });
+                    }
+                }
+                xdmf.push_snapshot(t, fields);
+            }
+            let series = file.group("series")?;
+            for name in series.member_names()? {
+                let ds = series.dataset(&name)?;
+                if ds.shape()[0] as u64 > keep {
+                    ds.resize(keep as usize)?;
+                }
+            }
+            write_string_attr(&root, "status", "running")?;
+            write_scalar_attr(&root, "finished_snapshots", keep)?;
+            Ok(())
+        })()
+        .map_err(err("cannot cut the run file back to its checkpoint"))?;
+        file.flush().map_err(err("cannot flush the run file"))?;
+        xdmf.write()?;
+        Ok(RunWriter {
+            file,
+            path: path.to_path_buf(),
+            lattice: lattice.clone(),
+            compression,
+            finished: keep,
+            series_len: keep as usize,
+            xdmf,
+        })
+    }
+
     /// Path of the run file.
     pub fn path(&self) -> &Path {
         &self.path

@@ -47,7 +47,9 @@ impl XdmfWriter {
     }
 
     /// Adds a finished snapshot.
-    pub fn push_snapshot(&mut self, time_s: f64, fields: Vec<XdmfField>) {
+    pub fn push_snapshot(&mut self, time_s: f64, mut fields: Vec<XdmfField>) {
+        // Alphabetical order: the same sidecar whether a run was written in one go or resumed.
+        fields.sort_by(|a, b| a.name.cmp(&b.name));
         self.steps.push((time_s, fields));
     }
 

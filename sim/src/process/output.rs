@@ -183,6 +183,17 @@ pub fn open_run_file(
     Ok(path)
 }
 
+/// Reopens the run file of an interrupted run, cut back to its first `keep` snapshots.
+pub fn reopen_run_file(sim: &mut Simulation, path: &std::path::Path, keep: u64) -> SimResult<std::path::PathBuf> {
+    let lattice = sim.lattice().clone();
+    let explicit = sim.params.output_explicit_mesh();
+    let mut writer = RunWriter::reopen(path, &lattice, keep, sim.params.output.compression_level, explicit)?;
+    let t = sim.world.resource::<Clock>().time;
+    writer.set_provenance("resumed_at_s", &format!("{t}"))?;
+    sim.world.resource_mut::<OutputFile>().0 = Some(writer);
+    Ok(path.to_path_buf())
+}
+
 /// Writes one snapshot of the world now.
 pub fn write_snapshot(world: &mut World) -> SimResult<()> {
     let mut file = world.resource_mut::<OutputFile>().0.take().ok_or_else(|| SimError::Invariant {

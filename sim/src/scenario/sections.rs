@@ -18,6 +18,8 @@ section! {
         time_step_s: f64 = 20.0, Check::above_upto(0.0, 3600.0);
         /// Interval between snapshots, hours.
         snapshot_interval_h: f64 = 0.5, Check::above_upto(0.0, 1.0e4);
+        /// Interval between checkpoints (written right after a snapshot), hours; 0 for none.
+        checkpoint_interval_h: f64 = 0.0, Check::closed(0.0, 1.0e4);
     }
 }
 
