@@ -69,6 +69,38 @@ impl Clock {
     }
 }
 
+/// Times (s) at which a step must end besides snapshots: doses, the start and end of
+/// interventions, scheduled parameter changes. Processes add theirs when they install; the list
+/// is a function of the scenario, so a checkpoint need not save it.
+#[derive(Resource, Debug, Clone, Default)]
+pub struct Breakpoints {
+    times: Vec<f64>,
+}
+
+impl Breakpoints {
+    /// Adds a time (s); times at or before 0 are ignored.
+    pub fn add(&mut self, t: f64) {
+        if t > 0.0 && t.is_finite() {
+            let i = self.times.partition_point(|&x| x < t);
+            if self.times.get(i) != Some(&t) {
+                self.times.insert(i, t);
+            }
+        }
+    }
+
+    /// The first breakpoint after `time` (beyond rounding), if any.
+    pub fn next_after(&self, time: f64) -> Option<f64> {
+        let eps = 1e-9 * time.abs().max(1.0);
+        let i = self.times.partition_point(|&x| x <= time + eps);
+        self.times.get(i).copied()
+    }
+
+    /// All breakpoints, s, increasing.
+    pub fn times(&self) -> &[f64] {
+        &self.times
+    }
+}
+
 /// The run's seed, from which every random stream is derived.
 #[derive(Resource, Debug, Clone, Copy, PartialEq, Eq)]
 pub struct Seed(pub u64);
@@ -129,6 +161,7 @@ impl Simulation {
         world.insert_resource(Seed(params.run.seed));
         init_task_pool();
         world.insert_resource(Faults::default());
+        world.insert_resource(Breakpoints::default());
         world.insert_resource(Clock {
             time: 0.0,
             dt: params.run.time_step,
@@ -167,11 +200,12 @@ impl Simulation {
     /// Runs one step; returns the first fault a system raised.
     pub fn step(&mut self) -> SimResult<()> {
         {
+            let next_break = self.world.resource::<Breakpoints>().next_after(self.world.resource::<Clock>().time);
             let mut clock = self.world.resource_mut::<Clock>();
-            let target = clock.next_snapshot.min(clock.end);
+            let target = clock.next_snapshot.min(clock.end).min(next_break.unwrap_or(f64::INFINITY));
             let remaining = target - clock.time;
             let base = self.params.run.time_step;
-            // Land exactly on snapshot times; avoid a sliver of a step just before one.
+            // Land exactly on snapshot times and breakpoints; avoid a sliver of a step just before one.
             clock.dt = if remaining <= base * (1.0 + 1e-9) { remaining.max(0.0) } else { base.min(remaining) };
         }
         self.schedule.run(&mut self.world);
@@ -237,12 +271,17 @@ impl Simulation {
 }
 
 /// Moves the clock by the step just taken.
-pub fn advance_clock(mut clock: ResMut<Clock>) {
+pub fn advance_clock(mut clock: ResMut<Clock>, breaks: Res<Breakpoints>) {
     clock.time += clock.dt;
     clock.step += 1;
-    // Snap to the snapshot time when within rounding of it.
+    // Snap to the snapshot time or a breakpoint when within rounding of it.
     if (clock.time - clock.next_snapshot).abs() <= 1e-9 * clock.next_snapshot.max(1.0) {
         clock.time = clock.next_snapshot;
+    }
+    if let Some(b) = breaks.next_after(clock.time - 2e-9 * clock.time.max(1.0))
+        && (clock.time - b).abs() <= 1e-9 * b.max(1.0)
+    {
+        clock.time = b;
     }
     if (clock.time - clock.end).abs() <= 1e-9 * clock.end.max(1.0) {
         clock.time = clock.end;
