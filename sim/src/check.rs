@@ -70,7 +70,32 @@ pub fn derived(loaded: &LoadedScenario) -> crate::error::SimResult<Vec<Derived>>
     out.push(d("time", "steps", steps, "1", "at the requested step"));
     out.push(d("time", "snapshots", (p.run.end_time / p.run.snapshot_interval).ceil() + 1.0, "1", "including t = 0"));
     crate::vessels::check::derived(&p, &regions, &mut out)?;
+    intervention_lines(&p, &mut out);
     Ok(out)
+}
+
+/// Each intervention's start, end and the number of updates it brings.
+fn intervention_lines(p: &Params, out: &mut Vec<Derived>) {
+    let descr = crate::process::interventions::describe(&p.interventions);
+    for (iv, text) in p.interventions.iter().zip(descr) {
+        let updates = iv.update_times(p.run.end_time).len() as f64;
+        let note = text.split_once(' ').map_or(text.clone(), |(_, rest)| rest.to_string());
+        out.push(dd("interventions", &format!("{}: updates", iv.name), updates, "1", &note));
+        if let crate::process::interventions::Action::Degradation { rate, enzyme_half_life, .. } = iv.action {
+            let total = iv.level(iv.end.unwrap_or(p.run.end_time));
+            out.push(dd(
+                "interventions",
+                &format!("{}: fibres left", iv.name),
+                (-total).exp(),
+                "1",
+                &format!(
+                    "exp(-k tau (1 - exp(-T/tau))), k = {:.3e} 1/s, tau = {:.3e} s",
+                    rate,
+                    enzyme_half_life / std::f64::consts::LN_2
+                ),
+            ));
+        }
+    }
 }
 
 /// The interstitial fluid numbers of Baxter and Jain 1989 (Microvasc Res 37:77): for a uniform

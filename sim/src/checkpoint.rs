@@ -271,7 +271,11 @@ fn load(world: &mut World, f: &File) -> hdf5::Result<u64> {
     world.insert_resource(sites);
 
     let g = f.group("ledger")?;
-    world.insert_resource(Ledger { injected: get(&g, "injected")?, drained: get(&g, "drained")?, left: get(&g, "left")? });
+    world.insert_resource(Ledger {
+        injected: get(&g, "injected")?,
+        drained: get(&g, "drained")?,
+        left: get(&g, "left")?,
+    });
 
     let g = f.group("matrix_load")?;
     let species = world.resource::<Ledger>().species();
@@ -308,10 +312,23 @@ fn load(world: &mut World, f: &File) -> hdf5::Result<u64> {
         mx.gag.data = gag;
         mx.porosity.data = porosity;
     }
+    // Interventions in force at the restored time: network and motion coefficients.
+    crate::process::interventions::catch_up(world);
+    let revisions = (
+        world.get_resource::<crate::vessels::network::Network>().map(|n| n.revision),
+        world.get_resource::<crate::vessels::flow::BloodFlow>().map(|f| f.revision),
+    );
+    if let (Some(a), Some(b)) = revisions
+        && a != b
+    {
+        crate::process::blood::update_blood(world);
+    }
     // Pressure: a run that has re-solved since its start gets the saved field back; solving again
     // from it stops at once (it is already converged for the restored inputs) and re-derives the
     // flows from it.
-    if let (Ok(g), true) = (f.group("pressure"), world.contains_resource::<crate::process::pressure::InterstitialFluid>()) {
+    if let (Ok(g), true) =
+        (f.group("pressure"), world.contains_resource::<crate::process::pressure::InterstitialFluid>())
+    {
         let solves: u64 = read_attr(&g, "solves")?;
         let saved: Vec<f64> = get(&g, "pressure")?;
         let fresh = world.resource::<crate::process::pressure::InterstitialFluid>().solves;

@@ -283,6 +283,8 @@ pub struct Params {
     pub transport: crate::process::transport::TransportParams,
     pub binding: crate::process::binding::BindingParams,
     pub designs: crate::particles::Designs,
+    /// Scheduled interventions, in scenario order.
+    pub interventions: Vec<crate::process::interventions::Intervention>,
 }
 
 impl Params {
@@ -494,6 +496,78 @@ impl Params {
                 cell_tables: s.output.cell_tables,
                 xdmf_mesh: s.output.xdmf_mesh,
             },
+            interventions: Vec::new(),
         }
+        .with_interventions(s, file)
+    }
+
+    /// Resolves the `[[intervention]]` tables; a `set` carries the whole parameter set in force
+    /// from its start (earlier sets included), resolved from the changed scenario.
+    fn with_interventions(mut self, s: &Scenario, file: Option<&std::path::Path>) -> Self {
+        use crate::process::interventions::{Action, Intervention, Place};
+        use crate::scenario::InterventionRegion;
+        let mut order: Vec<usize> = (0..s.intervention.len()).collect();
+        order.sort_by(|&a, &b| s.intervention[a].start_h.total_cmp(&s.intervention[b].start_h));
+        let mut current = s.clone();
+        current.intervention.clear();
+        let mut out: Vec<(usize, Intervention)> = Vec::new();
+        for i in order {
+            let iv = &s.intervention[i];
+            let place = match iv.region {
+                InterventionRegion::All => Place::All,
+                InterventionRegion::Tumour => Place::Tumour,
+                InterventionRegion::Host => Place::Host,
+                InterventionRegion::Sphere => Place::Sphere {
+                    centre: iv.region_centre_um.map(|c| c.map(|v| v * UM)).unwrap_or(self.tumour.centre),
+                    radius: iv.region_radius_um * UM,
+                },
+            };
+            let action = if let Some(d) = &iv.matrix_degradation {
+                Action::Degradation {
+                    fibre: d.fibre,
+                    rate: d.rate_per_h / HOUR,
+                    enzyme_half_life: d.enzyme_half_life_h * HOUR,
+                    update_interval: d.update_interval_min * 60.0,
+                }
+            } else if let Some(n) = &iv.normalisation {
+                Action::Normalisation {
+                    normal_pore_radius: n.normal_pore_radius_nm * NM,
+                    time_constant: n.time_constant_h * HOUR,
+                    prune_maturity_below: n.prune_maturity_below,
+                    update_interval: n.update_interval_min * 60.0,
+                }
+            } else if let Some(h) = &iv.heating {
+                Action::Heating {
+                    pore_factor: h.pore_factor,
+                    flow_factor: h.flow_factor,
+                    relax_time: h.relax_time_h * HOUR,
+                    update_interval: h.update_interval_min * 60.0,
+                }
+            } else if let Some(p) = &iv.peptide {
+                Action::Peptide {
+                    species: s.particle.iter().position(|d| d.name == p.particle).unwrap_or(0),
+                    wall_factor: p.wall_factor,
+                    tissue_factor: p.tissue_factor,
+                }
+            } else if let Some(set) = &iv.set {
+                // Validated before resolution: the change applies.
+                if let Ok(next) = crate::scenario::with_key(&current, &set.key, &set.value.0) {
+                    current = next;
+                }
+                Action::Set {
+                    key: set.key.clone(),
+                    value: set.value.0.to_string(),
+                    params: Box::new(Self::resolve_in(&current, file)),
+                }
+            } else {
+                continue;
+            };
+            let start = iv.start_h * HOUR;
+            let end = if iv.duration_h > 0.0 { Some(start + iv.duration_h * HOUR) } else { None };
+            out.push((i, Intervention { name: iv.name.clone(), start, end, place, action }));
+        }
+        out.sort_by_key(|(i, _)| *i);
+        self.interventions = out.into_iter().map(|(_, iv)| iv).collect();
+        self
     }
 }

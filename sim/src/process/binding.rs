@@ -587,16 +587,22 @@ fn fastest_cell_rate(kin: &Kinetics, p: &BindingParams) -> f64 {
     kin.species.iter().map(|k| k.koff_single + k.kint).fold(p.receptor_recycling, f64::max)
 }
 
+/// Puts the kinetics of `designs` under `binding` in force: rate constants and the interval
+/// between cell updates (each cell's update integrates exactly over the time since its last).
+pub fn set_kinetics(world: &mut World, designs: &Designs, binding: &BindingParams, time_step: f64) {
+    let kin = Kinetics::build(designs, binding);
+    let k = fastest_cell_rate(&kin, binding);
+    let interval = if k > 0.0 { ((0.01 / (k * time_step)).floor() as u64).clamp(1, 1000) } else { 1000 };
+    world.insert_resource(CellInterval(interval));
+    world.insert_resource(kin);
+    world.insert_resource(binding.clone());
+}
+
 /// Adds binding and uptake to the schedule.
 pub fn install(world: &mut World, schedule: &mut Schedule, params: &Params) {
     let designs = world.resource::<Designs>().clone();
     let n = world.resource::<Lattice>().len();
-    let kin = Kinetics::build(&designs, &params.binding);
-    let k = fastest_cell_rate(&kin, &params.binding);
-    let interval = if k > 0.0 { ((0.01 / (k * params.run.time_step)).floor() as u64).clamp(1, 1000) } else { 1000 };
-    world.insert_resource(CellInterval(interval));
-    world.insert_resource(kin);
-    world.insert_resource(params.binding.clone());
+    set_kinetics(world, &designs, &params.binding, params.run.time_step);
     let mut sites = CellSites::new(n);
     let mut q = world.query::<(&Cell, &Receptors)>();
     sites.rebuild(q.iter(world));

@@ -83,6 +83,9 @@ pub struct WallExchange {
     pub carry: Vec<Vec<f64>>,
     /// Network revision and pressure solve the coefficients were computed for.
     pub seen: (u64, u64),
+    /// Factor on the wall permeability of each species from an active route (a tissue-penetrating
+    /// peptide, [`crate::process::interventions`]); missing entries are 1.
+    pub route_factor: Vec<f64>,
 }
 
 /// Patches of the continuum model: one uniform wall per voxel of each region.
@@ -180,7 +183,8 @@ impl WallExchange {
             let p = pressure.map_or(0.0, |p| p[v]);
             let jv = patch.drive - patch.lp_s * p;
             for s in 0..species {
-                let (a, b) = patlak(jv * patch.pass[s], patch.ps[s]);
+                let route = self.route_factor.get(s).copied().unwrap_or(1.0);
+                let (a, b) = patlak(jv * patch.pass[s], patch.ps[s] * route);
                 self.influx[s][site] += a;
                 let vacc = motion.a[s][v] * vol;
                 if vacc > 0.0 {

@@ -5,6 +5,7 @@ pub mod accounting;
 pub mod binding;
 pub mod blood;
 pub mod exchange;
+pub mod interventions;
 pub mod output;
 pub mod plasma;
 pub mod pressure;
@@ -27,5 +28,6 @@ pub fn install(world: &mut World, schedule: &mut Schedule, params: &Params) -> S
     transport::install(world, schedule, params);
     exchange::install(world, schedule, params);
     binding::install(world, schedule, params);
+    interventions::install(world, schedule, params);
     Ok(())
 }

@@ -5,6 +5,7 @@
 //! [`spec`], and consistency between sections). Every problem names the file, the key path, the
 //! value, what was expected and the line.
 
+mod intervention_sections;
 mod sections;
 pub mod spans;
 pub mod spec;
@@ -14,6 +15,7 @@ mod vessel_checks;
 use std::fmt;
 use std::path::{Path, PathBuf};
 
+pub use intervention_sections::*;
 pub use sections::*;
 use spans::SpanIndex;
 pub use spec::{Check, KeySpec, Problem, Section, SectionDoc};

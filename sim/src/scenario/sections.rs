@@ -558,6 +558,8 @@ pub struct Scenario {
     pub blood: BloodSection,
     /// Particle designs, one `[[particle]]` table each.
     pub particle: Vec<ParticleSection>,
+    /// Scheduled interventions, one `[[intervention]]` table each.
+    pub intervention: Vec<super::InterventionSection>,
     pub output: OutputSection,
 }
 
@@ -583,6 +585,12 @@ impl Scenario {
             SectionDoc::of::<ParticleSection>("[[particle]]"),
             SectionDoc::of::<LigandSection>("particle.ligand"),
             SectionDoc::of::<PlasmaSection>("particle.plasma"),
+            SectionDoc::of::<super::InterventionSection>("[[intervention]]"),
+            SectionDoc::of::<super::DegradationSection>("intervention.matrix_degradation"),
+            SectionDoc::of::<super::NormalisationSection>("intervention.normalisation"),
+            SectionDoc::of::<super::HeatingSection>("intervention.heating"),
+            SectionDoc::of::<super::PeptideSection>("intervention.peptide"),
+            SectionDoc::of::<super::SetSection>("intervention.set"),
             SectionDoc::of::<OutputSection>("output"),
         ]
     }
@@ -604,12 +612,14 @@ impl Scenario {
         self.uptake.check_into("uptake", None, &mut out);
         self.blood.check_into("blood", None, &mut out);
         self.particle.check_into("particle", None, &mut out);
+        self.intervention.check_into("intervention", None, &mut out);
         self.output.check_into("output", None, &mut out);
         if !out.is_empty() {
             return out;
         }
         self.consistency(&mut out);
         self.vessel_consistency(file, &mut out);
+        super::intervention_problems(self, &mut out);
         out
     }
 

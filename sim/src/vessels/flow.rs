@@ -387,6 +387,10 @@ fn contract(net: &Network, g: &[f64]) -> (Vec<bool>, Vec<Chain>) {
 }
 
 /// Solves the blood flow of `net`.
+/// Factor on the resistance of a closed segment: it keeps the network connected for the solve and
+/// carries no flow to speak of.
+pub const CLOSED_FACTOR: f64 = 1e6;
+
 pub fn solve(net: &Network, opt: &FlowOptions) -> SimResult<BloodFlow> {
     net.check().map_err(|what| SimError::Invariant {
         time_s: 0.0,
@@ -398,7 +402,11 @@ pub fn solve(net: &Network, opt: &FlowOptions) -> SimResult<BloodFlow> {
         use rayon::prelude::*;
         net.segments
             .par_iter()
-            .map(|s| opt.plasma_viscosity * relative_viscosity(opt.law, s.radius, opt.haematocrit))
+            .enumerate()
+            .map(|(i, s)| {
+                let closed = if net.is_closed(i) { CLOSED_FACTOR } else { 1.0 };
+                closed * opt.plasma_viscosity * relative_viscosity(opt.law, s.radius, opt.haematocrit)
+            })
             .collect()
     };
     let conductance: Vec<f64> =
@@ -472,7 +480,7 @@ pub fn solve(net: &Network, opt: &FlowOptions) -> SimResult<BloodFlow> {
     // Below a billionth of the fastest segment the flow is rounding noise (dead ends).
     let threshold = opt.min_velocity.max(1e-9 * vmax);
     for s in 0..ns {
-        out.perfused[s] = out.velocity[s].abs() >= threshold && out.velocity[s] != 0.0;
+        out.perfused[s] = out.velocity[s].abs() >= threshold && out.velocity[s] != 0.0 && !net.is_closed(s);
     }
     let imbalance = out.node_imbalance(net);
     for (i, bc) in net.bc.iter().enumerate() {

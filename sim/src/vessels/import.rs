@@ -117,7 +117,7 @@ fn build(
         }
         segments.push(seg);
     }
-    let mut net = Network { nodes, bc: std::mem::take(&mut bc), segments, revision: 0 };
+    let mut net = Network { nodes, bc: std::mem::take(&mut bc), segments, closed: Vec::new(), revision: 0 };
     // Disconnected pieces.
     let (piece, count) = net.pieces();
     let deg = net.degrees();

@@ -70,11 +70,20 @@ pub struct Network {
     /// Boundary condition of each node.
     pub bc: Vec<NodeBc>,
     pub segments: Vec<Segment>,
+    /// Segments closed (pruned) by an intervention, by index (empty: none). A closed segment
+    /// carries a millionth of its open conductance, counts as unperfused and exchanges nothing.
+    pub closed: Vec<bool>,
     /// Changes whenever the network does; solvers compare it with their own.
     pub revision: u64,
 }
 
 impl Network {
+    /// Whether segment `s` is closed.
+    #[inline]
+    pub fn is_closed(&self, s: usize) -> bool {
+        self.closed.get(s).copied().unwrap_or(false)
+    }
+
     /// Marks the network as changed.
     pub fn touch(&mut self) {
         self.revision += 1;
