@@ -33,6 +33,10 @@ enum Command {
         /// Continue from the run's checkpoint in the output folder, if there is one.
         #[arg(long)]
         resume: bool,
+        /// Override one scenario key, e.g. --set 'intervention[0].enabled=false' (repeatable);
+        /// the run file stores the scenario with the overrides applied.
+        #[arg(long = "set", value_name = "KEY=VALUE")]
+        overrides: Vec<String>,
     },
     /// Validate a scenario and print the derived quantities of each process.
     Check {
@@ -41,6 +45,9 @@ enum Command {
         /// Also print every parameter after defaults are applied.
         #[arg(long)]
         resolved: bool,
+        /// Override one scenario key (repeatable), as for `run`.
+        #[arg(long = "set", value_name = "KEY=VALUE")]
+        overrides: Vec<String>,
     },
     /// Print every scenario key with its default, unit and allowed values.
     Defaults,
@@ -168,11 +175,36 @@ fn set_threads(threads: usize) -> Result<(), Box<dyn std::error::Error>> {
     Ok(())
 }
 
+/// Reads a scenario and applies `KEY=VALUE` overrides to its TOML before checking it. A value
+/// is read as TOML (number, boolean, quoted string, array), or else taken as a bare string.
+fn load(file: &std::path::Path, overrides: &[String]) -> Result<LoadedScenario, Box<dyn std::error::Error>> {
+    if overrides.is_empty() {
+        return Ok(LoadedScenario::from_file(file)?);
+    }
+    let text =
+        std::fs::read_to_string(file).map_err(|e| format!("{}: cannot read the scenario: {e}", file.display()))?;
+    let mut table: toml::Table =
+        toml::from_str(&text).map_err(|e| format!("{}: not valid TOML: {}", file.display(), e.message()))?;
+    for o in overrides {
+        let (key, raw) =
+            o.split_once('=').ok_or_else(|| format!("--set {o:?}: expected KEY=VALUE, e.g. run.seed=7"))?;
+        let value = toml::from_str::<toml::Table>(&format!("v = {raw}"))
+            .ok()
+            .and_then(|mut t| t.remove("v"))
+            .unwrap_or_else(|| toml::Value::String(raw.to_string()));
+        interstice_sweep::plan::set_path(&mut table, key.trim(), value)
+            .map_err(|e| format!("{}: --set {o:?}: {e}", file.display()))?;
+    }
+    let header: String = overrides.iter().map(|o| format!("# --set {o}\n")).collect();
+    let text = format!("{header}{}", toml::to_string(&table)?);
+    Ok(LoadedScenario::from_text(file, text)?)
+}
+
 fn run(cli: Cli) -> Result<(), Box<dyn std::error::Error>> {
     match cli.command {
-        Command::Run { scenario, out, threads, quiet, resume } => {
+        Command::Run { scenario, out, threads, quiet, resume, overrides } => {
             set_threads(threads)?;
-            let loaded = LoadedScenario::from_file(&scenario)?;
+            let loaded = load(&scenario, &overrides)?;
             let mut sim = Simulation::new(&loaded)?;
             let opts = RunOptions { out_dir: out, threads, quiet, resume };
             let summary = sim.run(&loaded, &opts)?;
@@ -186,8 +218,8 @@ fn run(cli: Cli) -> Result<(), Box<dyn std::error::Error>> {
                 );
             }
         }
-        Command::Check { scenario, resolved } => {
-            let loaded = LoadedScenario::from_file(&scenario)?;
+        Command::Check { scenario, resolved, overrides } => {
+            let loaded = load(&scenario, &overrides)?;
             println!("{}: valid scenario", scenario.display());
             print!("{}", check::render(&check::derived(&loaded)?));
             if resolved {

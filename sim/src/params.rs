@@ -513,6 +513,9 @@ impl Params {
         let mut out: Vec<(usize, Intervention)> = Vec::new();
         for i in order {
             let iv = &s.intervention[i];
+            if !iv.enabled {
+                continue;
+            }
             let place = match iv.region {
                 InterventionRegion::All => Place::All,
                 InterventionRegion::Tumour => Place::Tumour,

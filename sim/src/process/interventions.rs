@@ -36,6 +36,7 @@ use crate::lattice::Lattice;
 use crate::params::Params;
 use crate::particles::Designs;
 use crate::process::exchange::WallExchange;
+use crate::process::output::ExtraSnapshots;
 use crate::process::transport::{MotionFields, TransportParams};
 use crate::scenario::MatrixFibre;
 use crate::tissue::{Matrix, Occupancy, Receptors, Regions, TUMOUR};
@@ -232,6 +233,16 @@ pub fn install(world: &mut World, schedule: &mut Schedule, params: &Params) {
             b.add(*t);
         }
     }
+    // Snapshots at every start and end: the state before and after each change.
+    let mut extra = world.remove_resource::<ExtraSnapshots>().unwrap_or_default();
+    for iv in &list {
+        for t in [Some(iv.start), iv.end].into_iter().flatten() {
+            if t > 0.0 && t < end {
+                extra.add(t);
+            }
+        }
+    }
+    world.insert_resource(extra);
     let l = world.resource::<Lattice>().clone();
     let regions = world.resource::<Regions>().region.data.clone();
     let voxels: Vec<Vec<bool>> = list

@@ -26,6 +26,38 @@ pub struct OutputParts {
     pub series: Vec<SeriesPart>,
 }
 
+/// Snapshot times besides the regular ones, s, increasing: the start and end of every
+/// intervention, so the run file holds the state just before and after each change.
+#[derive(Resource, Debug, Clone, Default)]
+pub struct ExtraSnapshots(pub Vec<f64>);
+
+impl ExtraSnapshots {
+    /// Adds a time (s).
+    pub fn add(&mut self, t: f64) {
+        let i = self.0.partition_point(|&x| x < t);
+        if self.0.get(i) != Some(&t) {
+            self.0.insert(i, t);
+        }
+    }
+}
+
+/// The time of the next snapshot after `time`: the next multiple of the interval or the next
+/// extra snapshot time, whichever comes first, at most the end.
+fn next_snapshot_time(world: &World, time: f64) -> f64 {
+    let interval = world.resource::<crate::params::RunParams>().snapshot_interval;
+    let end = world.resource::<Clock>().end;
+    let eps = 1e-9 * time.abs().max(1.0);
+    let regular = ((time + eps) / interval).floor() + 1.0;
+    let mut next = (regular * interval).min(end);
+    if let Some(extra) = world.get_resource::<ExtraSnapshots>() {
+        let i = extra.0.partition_point(|&x| x <= time + eps);
+        if let Some(&t) = extra.0.get(i) {
+            next = next.min(t);
+        }
+    }
+    next
+}
+
 /// The open run file.
 #[derive(Resource, Default)]
 pub struct OutputFile(pub Option<RunWriter>);
@@ -220,10 +252,10 @@ pub fn write_snapshot(world: &mut World) -> SimResult<()> {
     })();
     world.resource_mut::<OutputFile>().0 = Some(file);
     result?;
-    let interval = world.resource::<crate::params::RunParams>().snapshot_interval;
+    let next = next_snapshot_time(world, world.resource::<Clock>().time);
     let mut c = world.resource_mut::<Clock>();
     c.snapshots += 1;
-    c.next_snapshot = (c.snapshots as f64 * interval).min(c.end);
+    c.next_snapshot = next;
     Ok(())
 }
 
@@ -235,10 +267,10 @@ pub fn snapshot_when_due(world: &mut World) {
         c.time >= c.next_snapshot || c.done()
     };
     if due && world.resource::<OutputFile>().0.is_none() {
-        let interval = world.resource::<crate::params::RunParams>().snapshot_interval;
+        let next = next_snapshot_time(world, world.resource::<Clock>().time);
         let mut c = world.resource_mut::<Clock>();
         c.snapshots += 1;
-        c.next_snapshot = (c.snapshots as f64 * interval).min(c.end);
+        c.next_snapshot = next;
         return;
     }
     if due && let Err(e) = write_snapshot(world) {

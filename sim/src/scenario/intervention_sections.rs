@@ -120,6 +120,8 @@ section! {
     pub struct InterventionSection {
         /// Label in the timeline and the series (letters, digits, '-', '_').
         name: String = "intervention".to_string();
+        /// Whether it takes place (false: checked, then left out; for controls).
+        enabled: bool = true;
         /// Start, hours after the first dose (t = 0).
         start_h: f64 = 0.0, Check::closed(0.0, 1.0e6);
         /// How long it acts, hours (0: until the end of the run).
@@ -328,7 +330,9 @@ pub fn intervention_problems(s: &Scenario, out: &mut Vec<Problem>) {
                             format!("a valid value of `{}`: {}", p.path, p.expected),
                         ));
                     }
-                    current = next;
+                    if iv.enabled {
+                        current = next;
+                    }
                 }
             }
         }
