@@ -85,12 +85,29 @@ fn moments(p: &Packets) -> ([f64; 3], [f64; 3]) {
 
 #[test]
 fn free_diffusion_mean_square_displacement_is_2dt() {
+    free_diffusion_msd(false);
+}
+
+#[test]
+fn free_diffusion_mean_square_displacement_is_2dt_with_single_steps_where_uniform() {
+    // The same check where the coefficients are marked uniform: every step is one sub-step of
+    // the whole dt (at most 1.25 voxel edges here: sqrt(6 D dt) = 0.77 of a 10 um voxel).
+    free_diffusion_msd(true);
+}
+
+fn free_diffusion_msd(mark: bool) {
     // Einstein 1905: each coordinate's variance grows as 2 D t. For Gaussian displacements the
     // sample variance has standard error sqrt(2/(N-1)) sigma^2; we allow 5 of them.
     let mut s = box_world(64, 10.0, "reflect", 1.0);
     let d = 1e-11;
     let l = s.lattice().clone();
-    s.world.insert_resource(MotionFields::uniform(&l, d, 0.3));
+    let mut f = MotionFields::uniform(&l, d, 0.3);
+    if mark {
+        f.mark_uniform(&l);
+        let inner = f.uniform[0].iter().filter(|&&u| u).count();
+        assert_eq!(inner, 60 * 60 * 60, "all but the two outer layers are uniform");
+    }
+    s.world.insert_resource(f);
     let n = 20_000;
     seed_point(&mut s.world, l.box_centre(), n);
     let tp = s.world.resource::<TransportParams>().clone();
@@ -176,6 +193,16 @@ fn chi2_999(k: usize) -> f64 {
 }
 
 fn well_mixed_run(d_of_x: &dyn Fn(f64) -> f64, a_of_x: &dyn Fn(f64) -> f64, drift: Drift) -> f64 {
+    well_mixed_steps(d_of_x, a_of_x, drift, false, 20)
+}
+
+fn well_mixed_steps(
+    d_of_x: &dyn Fn(f64) -> f64,
+    a_of_x: &dyn Fn(f64) -> f64,
+    drift: Drift,
+    mark: bool,
+    steps: u64,
+) -> f64 {
     // A closed box (reflecting faces) filled uniformly in C = n / a.
     let s = box_world(20, 10.0, "reflect", 0.25);
     let l = s.lattice().clone();
@@ -184,6 +211,9 @@ fn well_mixed_run(d_of_x: &dyn Fn(f64) -> f64, a_of_x: &dyn Fn(f64) -> f64, drif
         let x = (l.ijk(v)[0] as f64 + 0.5) / l.n[0] as f64;
         f.a[0][v] = a_of_x(x);
         f.ad[0][v] = a_of_x(x) * d_of_x(x);
+    }
+    if mark {
+        f.mark_uniform(&l);
     }
     let tp = s.world.resource::<TransportParams>().clone();
     let mut packets = Packets::default();
@@ -201,7 +231,6 @@ fn well_mixed_run(d_of_x: &dyn Fn(f64) -> f64, a_of_x: &dyn Fn(f64) -> f64, drif
     // a jump in D builds up within the diffusion length of each side).
     let dmax = (0..1000).map(|i| d_of_x(i as f64 / 1000.0)).fold(0.0, f64::max);
     let t_total = (8.0 * l.h).powi(2) / (2.0 * dmax);
-    let steps = 20;
     let dt = t_total / steps as f64;
     let vel = FaceVelocity::zero(&l);
     for step in 0..steps {
@@ -227,6 +256,18 @@ fn well_mixed_condition_holds_for_smooth_and_discontinuous_d() {
     let a = |x: f64| 0.2 + 0.3 * x;
     let r3 = well_mixed_run(&|_| 5e-12, &a, Drift::Ito);
     assert!(r3 < 1.0, "varying accessible fraction: {r3}");
+}
+
+#[test]
+fn well_mixed_condition_holds_with_single_steps_where_coefficients_are_uniform() {
+    // Thomson 1987, as above, with the coefficients marked: away from the jump (and from the
+    // faces) each step is a single sub-step of up to 0.7 voxel edges; near it the fine sub-steps.
+    let jump = |x: f64| if x < 0.5 { 1e-11 } else { 1e-12 };
+    let r = well_mixed_steps(&jump, &|_| 1.0, Drift::Ito, true, 400);
+    assert!(r < 1.0, "discontinuous D with single steps: chi-square / critical = {r}");
+    let a = |x: f64| 0.2 + 0.3 * ((x - 0.4) / 0.2).clamp(0.0, 1.0);
+    let r = well_mixed_steps(&|_| 5e-12, &a, Drift::Ito, true, 400);
+    assert!(r < 1.0, "accessible fraction with a ramp between uniform parts, single steps: {r}");
 }
 
 #[test]

@@ -459,6 +459,8 @@ pub fn rebuild_motion(world: &mut World) {
                 ad.iter().zip(a).map(|(g, a)| if *a > 0.0 { g / a } else { 0.0 }).fold(0.0, f64::max);
         }
     }
+    let l = world.resource::<Lattice>().clone();
+    fields.mark_uniform(&l);
     world.insert_resource(fields);
     if let Some(mut ex) = world.get_resource_mut::<WallExchange>() {
         ex.route_factor = route;

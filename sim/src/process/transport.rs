@@ -76,6 +76,11 @@ pub struct MotionFields {
     pub fc: Vec<f64>,
     /// Largest `D` of each species, m^2/s.
     pub d_max: Vec<f64>,
+    /// Per species and voxel: whether `a D` and `a` are the same in every voxel within two of it
+    /// (Chebyshev distance) and the voxel is at least two from every lattice face. Empty: unknown
+    /// (every packet takes the fine sub-steps). Set by [`MotionFields::mark_uniform`]; anything
+    /// that changes `ad` or `a` afterwards must mark again.
+    pub uniform: Vec<Vec<bool>>,
 }
 
 /// Interstitial fluid velocity on voxel faces, m/s (Darcy flux density over face porosity).
@@ -152,7 +157,61 @@ impl MotionFields {
 
     /// Uniform coefficients (tests, analytic checks): diffusion `d`, accessible fraction `a`.
     pub fn uniform(l: &Lattice, d: f64, a: f64) -> Self {
-        MotionFields { ad: vec![vec![a * d; l.len()]], a: vec![vec![a; l.len()]], fc: vec![1.0], d_max: vec![d] }
+        MotionFields {
+            ad: vec![vec![a * d; l.len()]],
+            a: vec![vec![a; l.len()]],
+            fc: vec![1.0],
+            d_max: vec![d],
+            uniform: Vec::new(),
+        }
+    }
+
+    /// Marks the voxels around which the coefficients of each species are uniform (see
+    /// [`MotionFields::uniform`]): a voxel differs when a face neighbour has other values; the
+    /// flags are that set dilated by two voxels (three separable passes), with the two outermost
+    /// layers of the lattice excluded.
+    pub fn mark_uniform(&mut self, l: &Lattice) {
+        let n = l.len();
+        let [nx, ny, nz] = l.n;
+        self.uniform = (0..self.ad.len())
+            .map(|s| {
+                let (ad, a) = (&self.ad[s], &self.a[s]);
+                let mut bad: Vec<bool> = (0..n)
+                    .into_par_iter()
+                    .map(|v| {
+                        (0..3).any(|ax| {
+                            [false, true]
+                                .iter()
+                                .any(|&up| l.neighbour(v, ax, up).is_some_and(|w| ad[w] != ad[v] || a[w] != a[v]))
+                        })
+                    })
+                    .collect();
+                for ax in 0..3 {
+                    let stride = l.stride(ax);
+                    let len = l.n[ax];
+                    let src = bad.clone();
+                    bad.par_iter_mut().enumerate().for_each(|(v, b)| {
+                        if *b {
+                            return;
+                        }
+                        let c = l.ijk(v)[ax];
+                        for d in 1..=2usize {
+                            if (c >= d && src[v - d * stride]) || (c + d < len && src[v + d * stride]) {
+                                *b = true;
+                                return;
+                            }
+                        }
+                    });
+                }
+                bad.into_iter()
+                    .enumerate()
+                    .map(|(v, b)| {
+                        let [i, j, k] = l.ijk(v);
+                        !b && i >= 2 && j >= 2 && k >= 2 && i + 2 < nx && j + 2 < ny && k + 2 < nz
+                    })
+                    .collect()
+            })
+            .collect();
     }
 }
 
@@ -315,8 +374,17 @@ pub fn move_packets(
                 let c0 = grid.cell(&u);
                 let v_here = grid.velocity(vel, &c0, &u);
                 let umax = v_here.iter().fold(0.0f64, |m, x| m.max(x.abs())) * fc.abs() * inv_h;
-                let n_diff = 6.0 * d_here * dt / (0.5625 * lmax * lmax);
+                // Where the coefficients are uniform within two voxels of the starting voxel and
+                // the whole step moves a packet at most 1.25 voxel edges, one sub-step is exact
+                // for the diffusion (constant coefficients) and keeps the interpolation inside
+                // the uniform neighbourhood; uniform increments are bounded (|xi| <= sqrt 3), so
+                // the bound holds for every draw. Advection keeps the fine criterion.
                 let n_adv = 4.0 * umax * dt / lmax;
+                let coarse = uniform_increments
+                    && n_adv <= 1.0
+                    && fields.uniform.get(s).is_some_and(|f| f[v0])
+                    && (6.0 * d_here * dt).sqrt() + umax * dt <= 1.25;
+                let n_diff = if coarse { 1.0 } else { 6.0 * d_here * dt / (0.5625 * lmax * lmax) };
                 let nsub = n_diff.max(n_adv).ceil().clamp(1.0, 1.0e6) as u64;
                 let h = dt / nsub as f64;
                 let mut rng = stream(seed, Domain::Transport, ids[i], step);
@@ -406,6 +474,8 @@ pub fn install(world: &mut World, schedule: &mut Schedule, params: &Params) {
     let designs = world.resource::<Designs>().clone();
     let fields = MotionFields::build(&tp, &designs, world.resource::<Matrix>());
     let lattice = world.resource::<Lattice>().clone();
+    let mut fields = fields;
+    fields.mark_uniform(&lattice);
     world.insert_resource(fields);
     if !world.contains_resource::<FaceVelocity>() {
         world.insert_resource(FaceVelocity::zero(&lattice));
