@@ -9,7 +9,8 @@
 //!
 //! Saved: the clock; the packet table in its current order; every cell (kind, voxel, receptors,
 //! loads, the time of its last kinetics update, whether it is active); matrix adsorption; the
-//! ledger; the plasma pools; the carried fractions of packets at each wall site; the matrix
+//! ledger; the plasma pools (their dose schedules are a function of the scenario, and what a step
+//! receives of them a function of the restored clock: nothing of theirs needs saving); the carried fractions of packets at each wall site; the matrix
 //! fields; the interstitial pressure and its solve count. A process that adds dynamic state adds
 //! it here.
 
@@ -271,7 +272,11 @@ fn load(world: &mut World, f: &File) -> hdf5::Result<u64> {
     world.insert_resource(sites);
 
     let g = f.group("ledger")?;
-    world.insert_resource(Ledger { injected: get(&g, "injected")?, drained: get(&g, "drained")?, left: get(&g, "left")? });
+    world.insert_resource(Ledger {
+        injected: get(&g, "injected")?,
+        drained: get(&g, "drained")?,
+        left: get(&g, "left")?,
+    });
 
     let g = f.group("matrix_load")?;
     let species = world.resource::<Ledger>().species();
@@ -311,7 +316,9 @@ fn load(world: &mut World, f: &File) -> hdf5::Result<u64> {
     // Pressure: a run that has re-solved since its start gets the saved field back; solving again
     // from it stops at once (it is already converged for the restored inputs) and re-derives the
     // flows from it.
-    if let (Ok(g), true) = (f.group("pressure"), world.contains_resource::<crate::process::pressure::InterstitialFluid>()) {
+    if let (Ok(g), true) =
+        (f.group("pressure"), world.contains_resource::<crate::process::pressure::InterstitialFluid>())
+    {
         let solves: u64 = read_attr(&g, "solves")?;
         let saved: Vec<f64> = get(&g, "pressure")?;
         let fresh = world.resource::<crate::process::pressure::InterstitialFluid>().solves;

@@ -5,6 +5,7 @@
 //! [`spec`], and consistency between sections). Every problem names the file, the key path, the
 //! value, what was expected and the line.
 
+mod dose_checks;
 mod sections;
 pub mod spans;
 pub mod spec;
