@@ -149,11 +149,11 @@ pub fn transition(k10: f64, k12: f64, k21: f64, t: f64) -> [[f64; 2]; 2] {
 
 /// `int_0^tau exp(M s) ds` of the two-compartment system of [`transition`]: entry `[i][j]`
 /// divided by `tau` is the probability that a particle entering compartment `j` at a time
-/// uniform in `[0, tau]` is in compartment `i` at `tau`. With `exp(M s) = e^(sigma s) [cosh(q s) I
-/// + sinh(q s) / q (M - sigma I)]` and eigenvalues `sigma +- q`, the integral is `A I + B (M -
-/// sigma I)` with `A = (phi(sigma + q) + phi(sigma - q)) / 2`, `B = (phi(sigma + q) - phi(sigma -
-/// q)) / (2 q)`, `phi(l) = (e^(l tau) - 1) / l`; for `q tau` below 1e-5, `B = int_0^tau s e^(sigma
-/// s) ds` (relative error under 1e-10).
+/// uniform in `[0, tau]` is in compartment `i` at `tau`. With eigenvalues `sigma +- q` and
+/// `exp(M s) = e^(sigma s) (cosh(q s) I + sinh(q s) / q (M - sigma I))`, the integral is
+/// `A I + B (M - sigma I)` with `A = (phi(sigma + q) + phi(sigma - q)) / 2`,
+/// `B = (phi(sigma + q) - phi(sigma - q)) / (2 q)` and `phi(l) = (e^(l tau) - 1) / l`; for
+/// `q tau` below 1e-5, `B = int_0^tau s e^(sigma s) ds` (relative error under 1e-10).
 pub fn transition_integral(k10: f64, k12: f64, k21: f64, tau: f64) -> [[f64; 2]; 2] {
     let (a, b, c, d) = (-(k10 + k12), k21, k12, -k21);
     let s = 0.5 * (a + d);
