@@ -236,7 +236,7 @@ fn dose_lines(p: &Params, out: &mut Vec<Derived>) {
         let sch = &pp.schedule;
         let times = sch.breakpoints().len();
         let note = format!(
-            "{} bolus(es), {} infusion(s); {} dose time(s) after 0 end steps",
+            "{} bolus(es), {} infusion(s); {} dose time(s) after t = 0, each the end of a step",
             sch.boluses.len(),
             sch.infusions.len(),
             times
