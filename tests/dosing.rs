@@ -66,3 +66,23 @@ fn the_dosing_demo_gives_its_schedules_exactly_and_follows_the_superposition() {
         }
     }
 }
+
+/// The restart tests' scenario with a schedule that straddles its first checkpoint (0.3 h): an
+/// infusion from 0.2 h to 1.4 h and boluses at 0.5 h and 1.5 h.
+fn resumed() -> String {
+    RESTART.replace("name = \"ck\"", "name = \"dk\"")
+        + "[[particle.dose]]\nkind = \"infusion\"\nat_h = 0.2\nduration_h = 1.2\nparticles = 6e12\n\
+           [[particle.dose]]\nkind = \"repeated\"\nat_h = 0.5\nevery_h = 1.0\ncount = 2\nparticles = 2e12\n"
+}
+
+#[test]
+fn a_killed_run_with_a_schedule_resumed_from_its_checkpoint_equals_the_uninterrupted_run() {
+    let dir = tempfile::tempdir().unwrap();
+    let s = scenario(dir.path(), "dk", &resumed());
+    let (a, b) = (dir.path().join("a"), dir.path().join("b"));
+    interstice(&["run", s.to_str().unwrap(), "--out", a.to_str().unwrap(), "-q"]);
+    run_until_checkpoint(&s, &b, "dk");
+    interstice(&["run", s.to_str().unwrap(), "--out", b.to_str().unwrap(), "-q", "--resume"]);
+    let text = python("compare_runs.py", &[a.join("dk.h5").to_str().unwrap(), b.join("dk.h5").to_str().unwrap()]);
+    assert!(text.contains("identical"), "{text}");
+}
