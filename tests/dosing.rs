@@ -1,7 +1,8 @@
 //! End-to-end check of dose schedules: the dosing demo runs, its run file passes the h5py checks
 //! (particle balance at every snapshot), its `injected_<design>` series follow the schedules
-//! exactly, and its plasma curves follow the closed-form superposition of the doses (Gibaldi
-//! and Perrier 1982, Pharmacokinetics, 2nd ed., chapter 2).
+//! exactly, and its plasma curves follow the closed-form superposition of the doses
+//! (superposition principle; Gibaldi and Perrier 1982, Pharmacokinetics, 2nd ed., chapters on the
+//! compartment models and on multiple dosing, chapter numbers from memory).
 
 mod common;
 

@@ -1,8 +1,10 @@
 //! Dose schedules: plasma curves of repeated boluses and constant infusions against the
-//! closed-form superposition of the doses' responses (Gibaldi and Perrier 1982,
-//! Pharmacokinetics, 2nd ed., chapter 2: the plasma amount of a linear model after several
-//! inputs is the sum of its responses to each), for one- and two-compartment elimination; exact
-//! counts and balances; steps landing on dose times; validation of `[[particle.dose]]`.
+//! closed-form superposition of the doses' responses (superposition principle: the plasma amount
+//! of a linear model after several inputs is the sum of its responses to each; Gibaldi and
+//! Perrier 1982, Pharmacokinetics, 2nd ed., chapter 2 for the compartment models and the
+//! multiple-dosing chapter for superposition; chapter numbers from memory), for one- and
+//! two-compartment elimination; exact counts and balances; steps landing on dose times;
+//! validation of `[[particle.dose]]`.
 //!
 //! Tolerance of the curves: every particle's fate is independent of the others', so the plasma
 //! count at a time is a sum of independent Bernoulli variables whose variance `sum p (1 - p)` is
@@ -50,7 +52,7 @@ fn assert_close(what: &str, t: f64, got: f64, want: f64) {
 ///
 /// One compartment: a bolus `D` at `t_i` contributes `D e^(-k (t - t_i))`; an infusion at rate
 /// `R` over `[t0, t0 + T]` contributes `R/k (1 - e^(-k (t - t0)))` during it and that value at
-/// `t0 + T` times `e^(-k (t - t0 - T))` after (Gibaldi and Perrier 1982, chapter 2).
+/// `t0 + T` times `e^(-k (t - t0 - T))` after (Gibaldi and Perrier 1982, chapter 2, from memory).
 fn one_compartment(s: &DoseSchedule, k: f64, t: f64) -> f64 {
     let mut c = 0.0;
     for b in &s.boluses {
@@ -71,7 +73,7 @@ fn one_compartment(s: &DoseSchedule, k: f64, t: f64) -> f64 {
 /// Two compartments with plasma curve `A e^(-alpha t) + B e^(-beta t)` after a unit bolus
 /// (`A + B = 1`): boluses superpose that curve, an infusion at rate `R` its time integral,
 /// `R sum_j A_j / l_j (1 - e^(-l_j tau))` over the time `tau` it has run, decayed after it ends
-/// (Gibaldi and Perrier 1982, chapter 2).
+/// (Gibaldi and Perrier 1982, chapter 2, from memory).
 fn two_compartment_curve(s: &DoseSchedule, a: f64, alpha: f64, beta: f64, t: f64) -> f64 {
     let terms = [(a, alpha), (1.0 - a, beta)];
     let mut c = 0.0;

@@ -27,9 +27,11 @@
 //! plasma for one compartment, and the time integral of the transition matrix,
 //! [`transition_integral`], for two. The infused counts are drawn with these exact probabilities
 //! (not added at a point of the step), so the expected plasma amount at every step end is the
-//! closed-form superposition of the doses' responses (Gibaldi and Perrier 1982, Pharmacokinetics,
-//! 2nd ed., chapter 2: a linear system's response to a sum of inputs is the sum of its responses)
-//! up to the rounding of whole particles (less than one particle).
+//! closed-form superposition of the doses' responses (superposition principle: a linear model's
+//! response to a sum of inputs is the sum of its responses to each; Gibaldi and Perrier 1982,
+//! Pharmacokinetics, 2nd ed., chapter 2 for the compartment models and the multiple-dosing
+//! chapter for superposition; chapter numbers from memory) up to the rounding of whole particles
+//! (less than one particle).
 //!
 //! Bookkeeping is in exact particle counts (u64): per step each particle in plasma is eliminated
 //! with the exact probability of the model over the step, drawn as a binomial count from the
