@@ -3,7 +3,7 @@
 
 mod common;
 
-use std::process::{Command, Stdio};
+use std::process::Command;
 use std::time::{Duration, Instant};
 
 use common::*;
@@ -79,12 +79,7 @@ xdmf_mesh = "explicit"
 "#,
     );
     let out = dir.path().join("out");
-    let mut child = Command::new(bin())
-        .args(["run", s.to_str().unwrap(), "--out", out.to_str().unwrap(), "-q"])
-        .stdout(Stdio::null())
-        .stderr(Stdio::null())
-        .spawn()
-        .unwrap();
+    let mut child = spawn_run(&s, &out);
     // The sidecar is rewritten after each finished snapshot: wait for the third.
     let xmf = out.join("long.xmf");
     let t0 = Instant::now();
@@ -131,50 +126,6 @@ fn check_defaults_and_version_commands_work() {
     assert!(text.contains("commit") && text.contains("research use"), "{text}");
 }
 
-const RESTART: &str = r#"
-[run]
-name = "ck"
-seed = 5
-end_time_h = 3.0
-time_step_s = 10.0
-snapshot_interval_h = 0.1
-checkpoint_interval_h = 0.3
-[lattice]
-shape = [28, 28, 28]
-voxel_um = 20.0
-[tumour]
-radius_um = 200.0
-[vessels]
-model = "network"
-[[particle]]
-name = "np"
-packet_particles = 1e6
-[particle.ligand]
-valency = 2
-internalisation_per_s = 1e-3
-[output]
-packet_tables = true
-"#;
-
-/// Starts a run and kills it (SIGKILL) as soon as its first checkpoint is in place.
-fn run_until_checkpoint(s: &std::path::Path, out: &std::path::Path) {
-    let mut child = Command::new(bin())
-        .args(["run", s.to_str().unwrap(), "--out", out.to_str().unwrap(), "-q"])
-        .stdout(Stdio::null())
-        .stderr(Stdio::null())
-        .spawn()
-        .unwrap();
-    let ckpt = out.join("ck.ckpt.h5");
-    let t0 = Instant::now();
-    while !ckpt.exists() {
-        assert!(t0.elapsed() < Duration::from_secs(120), "no checkpoint written");
-        assert!(child.try_wait().unwrap().is_none(), "run ended before it could be killed");
-        std::thread::sleep(Duration::from_millis(5));
-    }
-    child.kill().unwrap();
-    assert!(!child.wait().unwrap().success());
-}
-
 #[test]
 fn killed_run_resumed_from_its_checkpoint_equals_the_uninterrupted_run() {
     // Random streams are derived from (seed, process, id, step), so a resumed run must reproduce
@@ -185,7 +136,7 @@ fn killed_run_resumed_from_its_checkpoint_equals_the_uninterrupted_run() {
     let b = dir.path().join("b");
     interstice(&["run", s.to_str().unwrap(), "--out", a.to_str().unwrap(), "-q"]);
     assert!(!a.join("ck.ckpt.h5").exists(), "a finished run removes its checkpoint");
-    run_until_checkpoint(&s, &b);
+    run_until_checkpoint(&s, &b, "ck");
     let out = interstice(&["run", s.to_str().unwrap(), "--out", b.to_str().unwrap(), "-q", "--resume"]);
     assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
     let text = python("compare_runs.py", &[a.join("ck.h5").to_str().unwrap(), b.join("ck.h5").to_str().unwrap()]);
@@ -197,7 +148,7 @@ fn resume_refuses_a_checkpoint_of_another_scenario() {
     let dir = tempfile::tempdir().unwrap();
     let s = scenario(dir.path(), "ck", RESTART);
     let b = dir.path().join("b");
-    run_until_checkpoint(&s, &b);
+    run_until_checkpoint(&s, &b, "ck");
     let s2 = scenario(dir.path(), "ck", &RESTART.replace("seed = 5", "seed = 6"));
     let out = Command::new(bin())
         .args(["run", s2.to_str().unwrap(), "--out", b.to_str().unwrap(), "-q", "--resume"])

@@ -65,6 +65,7 @@ pub fn derived(loaded: &LoadedScenario) -> crate::error::SimResult<Vec<Derived>>
     ));
     fluid_checks(&p, &mut out);
     particle_lines(&p, &mut out);
+    dose_lines(&p, &mut out);
     let steps = (p.run.end_time / p.run.time_step).ceil();
     out.push(d("time", "time step", p.run.time_step, "s", "requested"));
     out.push(d("time", "steps", steps, "1", "at the requested step"));
@@ -250,6 +251,24 @@ fn particle_lines(p: &Params, out: &mut Vec<Derived>) {
         }
         if k.phagocytosis > 0.0 {
             out.push(dd(sec, &format!("{name}: phagocyte uptake"), k.phagocytosis, "1/s", "in a phagocyte's voxel"));
+        }
+    }
+}
+
+/// Per design: the total dose, then each bolus and infusion of its schedule with its times.
+fn dose_lines(p: &Params, out: &mut Vec<Derived>) {
+    for pp in &p.particles {
+        let sch = &pp.schedule;
+        let times = sch.breakpoints().len();
+        let note = format!(
+            "{} bolus(es), {} infusion(s); {} dose time(s) after t = 0, each the end of a step",
+            sch.boluses.len(),
+            sch.infusions.len(),
+            times
+        );
+        out.push(d("dosing", &format!("{}: total dose", pp.name), pp.dose as f64, "1", &note));
+        for (what, n, when) in sch.describe() {
+            out.push(d("dosing", &format!("{}: {what}", pp.name), n as f64, "1", &when));
         }
     }
 }

@@ -9,7 +9,8 @@
 //!
 //! Saved: the clock; the packet table in its current order; every cell (kind, voxel, receptors,
 //! loads, the time of its last kinetics update, whether it is active); matrix adsorption; the
-//! ledger; the plasma pools; the carried fractions of packets at each wall site; the matrix
+//! ledger; the plasma pools (their dose schedules are a function of the scenario, and what a step
+//! receives of them a function of the restored clock: nothing of theirs needs saving); the carried fractions of packets at each wall site; the matrix
 //! fields; the interstitial pressure and its solve count. A process that adds dynamic state adds
 //! it here.
 

@@ -230,8 +230,10 @@ pub struct ParticlePlasmaParams {
     /// Surface potential, V.
     pub surface_potential: f64,
     pub coating: crate::scenario::Coating,
-    /// Particles of the bolus at t = 0 (exact count).
+    /// Particles of the whole dose schedule (exact count).
     pub dose: u64,
+    /// When the particles are given: boluses and infusions, s.
+    pub schedule: crate::vessels::dosing::DoseSchedule,
     pub model: crate::scenario::PlasmaModel,
     /// Renal cut-off diameter and its width, m; renal clearance rate well below it, 1/s.
     pub renal_cutoff_diameter: f64,
@@ -468,12 +470,14 @@ impl Params {
                 .iter()
                 .map(|p| {
                     let pl = &p.plasma;
+                    let schedule = crate::vessels::dosing::DoseSchedule::from_section(p);
                     ParticlePlasmaParams {
                         name: p.name.clone(),
                         hydrodynamic_radius: p.hydrodynamic_radius_nm * NM,
                         surface_potential: p.surface_potential_mV * 1e-3,
                         coating: p.coating,
-                        dose: p.dose_particles.round() as u64,
+                        dose: schedule.total(),
+                        schedule,
                         model: pl.model,
                         renal_cutoff_diameter: pl.renal_cutoff_diameter_nm * NM,
                         renal_cutoff_width: pl.renal_cutoff_width_nm * NM,

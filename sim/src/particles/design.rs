@@ -28,7 +28,7 @@ pub struct Design {
     /// Surface (zeta) potential, V.
     pub potential: f64,
     pub coating: Coating,
-    /// Particles in the bolus at t = 0.
+    /// Particles of the whole dose schedule.
     pub dose: u64,
     /// Particles per packet.
     pub packet: u64,
@@ -52,7 +52,7 @@ impl Design {
             radius,
             potential: p.surface_potential_mV * 1e-3,
             coating: p.coating,
-            dose: p.dose_particles.round() as u64,
+            dose: crate::vessels::dosing::DoseSchedule::from_section(p).total(),
             packet: (p.packet_particles.round() as u64).max(1),
             convective_hindrance: p.convective_hindrance,
             d0: stokes_einstein(radius, viscosity, temperature),

@@ -1,5 +1,7 @@
 //! Plasma pharmacokinetics of every particle design, in [`Phase::Blood`]: one [`PlasmaPool`] per
-//! species (exact particle counts), stepped with the elimination of [`crate::vessels::pk`].
+//! species (exact particle counts), dosed by its schedule ([`crate::vessels::dosing`]: every
+//! bolus time and infusion start and end is a [`Breakpoints`] time) and stepped with the
+//! elimination of [`crate::vessels::pk`].
 //! The exchange process withdraws particles into the tissue and returns them with
 //! [`PlasmaPool::withdraw`] and [`PlasmaPool::give_back`]; the balance
 //! `dose + returned = plasma + peripheral + cleared + withdrawn` is checked every step.
@@ -10,7 +12,7 @@ use crate::error::{SimError, SimResult};
 use crate::params::Params;
 use crate::rng::{Domain, stream};
 use crate::vessels::pk::{Elimination, PlasmaPool};
-use crate::world::{Clock, Faults, Phase, Seed, SpeciesNames};
+use crate::world::{Breakpoints, Clock, Faults, Phase, Seed, SpeciesNames};
 
 /// Random-stream ids of the plasma steps: this tag plus the species index.
 pub const STREAM_TAG: u64 = 6 << 56;
@@ -41,7 +43,7 @@ pub fn pools(params: &Params) -> SimResult<Vec<PlasmaPool>> {
         .iter()
         .map(|p| {
             let e = Elimination::of(p, plasma_volume)?;
-            Ok(PlasmaPool::bolus(&p.name, p.dose, params.blood.volume, plasma_volume, e))
+            Ok(PlasmaPool::scheduled(&p.name, p.schedule.clone(), params.blood.volume, plasma_volume, e))
         })
         .collect()
 }
@@ -55,12 +57,18 @@ pub fn install(world: &mut World, schedule: &mut Schedule, params: &Params) -> S
     if !world.contains_resource::<SpeciesNames>() {
         world.insert_resource(SpeciesNames(pools.iter().map(|p| p.name.clone()).collect()));
     }
+    // Every dose time ends a step, so boluses fall on step starts and infusions on whole steps.
+    if let Some(mut breaks) = world.get_resource_mut::<Breakpoints>() {
+        for t in pools.iter().flat_map(|p| p.schedule.breakpoints()) {
+            breaks.add(t);
+        }
+    }
     world.insert_resource(PlasmaPools { pools });
     schedule.add_systems(step_plasma.in_set(Phase::Blood));
     Ok(())
 }
 
-/// Eliminates plasma particles over the step and checks the balance of every pool.
+/// Gives the step's doses, eliminates plasma particles over the step and checks the balance of every pool.
 pub fn step_plasma(mut pools: ResMut<PlasmaPools>, clock: Res<Clock>, seed: Res<Seed>, mut faults: ResMut<Faults>) {
     for (i, pool) in pools.pools.iter_mut().enumerate() {
         let mut s = stream(seed.0, Domain::Vessels, STREAM_TAG | i as u64, clock.step);

@@ -6,6 +6,7 @@
 //! value, what was expected and the line.
 
 mod intervention_sections;
+mod dose_checks;
 mod sections;
 pub mod spans;
 pub mod spec;
@@ -222,13 +223,20 @@ impl LoadedScenario {
 /// Renders every section's keys with defaults, units and allowed values: the one table of defaults.
 pub fn defaults_table() -> String {
     let mut out = String::new();
-    for sec in Scenario::sections() {
+    let sections = Scenario::sections();
+    for sec in &sections {
         let header = if sec.name.starts_with("[[") { sec.name.to_string() } else { format!("[{}]", sec.name) };
         out.push_str(&format!("{header}  # {}\n", sec.summary.trim()));
         for k in &sec.keys {
             let value = sec.defaults.get(k.key);
+            let nested = format!("{}.{}", sec.name.trim_matches(['[', ']']), k.key);
             if let Some(toml::Value::Table(_)) = value {
-                out.push_str(&format!("# {}: see [{}.{}]\n", k.key, sec.name.trim_matches(['[', ']']), k.key));
+                out.push_str(&format!("# {}: see [{nested}]\n", k.key));
+                continue;
+            }
+            // An array of tables documented as its own section (`[[particle.dose]]`).
+            if sections.iter().any(|s| s.name == format!("[[{nested}]]")) {
+                out.push_str(&format!("# {}: see [[{nested}]] (none by default)\n", k.key));
                 continue;
             }
             match value {

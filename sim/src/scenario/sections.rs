@@ -472,6 +472,40 @@ section! {
     }
 }
 
+/// How one entry of a dose schedule gives its particles.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum DoseKind {
+    /// One intravenous bolus of `particles` at `at_h`.
+    Bolus,
+    /// `count` boluses of `particles` each, the first at `at_h`, then every `every_h`.
+    Repeated,
+    /// A constant intravenous infusion from `at_h` for `duration_h`: `particles` in all, or
+    /// `particles_per_h`.
+    Infusion,
+}
+checked_plain!(DoseKind);
+
+section! {
+    /// One entry of a particle design's dose schedule (`[[particle.dose]]`).
+    pub struct DoseSection {
+        /// "bolus", "repeated" or "infusion".
+        kind: DoseKind = DoseKind::Bolus;
+        /// Time of the bolus, of the first repeated bolus or of the start of the infusion, hours.
+        at_h: f64 = 0.0, Check::closed(0.0, 1.0e4);
+        /// Interval between repeated boluses, hours ("repeated" only).
+        every_h: Option<f64> = None, Check::above_upto(0.0, 1.0e4);
+        /// Number of repeated boluses ("repeated" only).
+        count: Option<u32> = None, Check::count(1.0, 1.0e5);
+        /// Duration of the infusion, hours ("infusion" only).
+        duration_h: Option<f64> = None, Check::above_upto(0.0, 1.0e4);
+        /// Particles of each bolus, or of the whole infusion.
+        particles: Option<f64> = None, Check::closed(0.0, 1.0e19);
+        /// Infusion rate instead of the infusion's total, particles per hour ("infusion" only).
+        particles_per_h: Option<f64> = None, Check::closed(0.0, 1.0e19);
+    }
+}
+
 section! {
     /// One particle design: a species of its own in every output.
     pub struct ParticleSection {
@@ -483,8 +517,11 @@ section! {
         surface_potential_mV: f64 = -10.0, Check::closed(-200.0, 200.0);
         /// Surface coating: "none" or "stealth".
         coating: Coating = Coating::Stealth;
-        /// Particles given in one intravenous bolus at t = 0.
-        dose_particles: f64 = 1.0e13, Check::closed(0.0, 1.0e20);
+        /// Particles given in one intravenous bolus at t = 0 (1e13 when neither this nor a
+        /// `[[particle.dose]]` is given; not both).
+        dose_particles: Option<f64> = None, Check::closed(0.0, 1.0e19);
+        /// Dose schedule: boluses, repeated boluses and infusions, one `[[particle.dose]]` table each.
+        dose: Vec<DoseSection> = Vec::new();
         /// Particles carried by one packet in the tissue.
         packet_particles: f64 = 1.0e4, Check::closed(1.0, 1.0e15);
         /// Factor on the particle's advection by interstitial flow (1: it moves with the fluid).
@@ -591,6 +628,7 @@ impl Scenario {
             SectionDoc::of::<super::HeatingSection>("intervention.heating"),
             SectionDoc::of::<super::PeptideSection>("intervention.peptide"),
             SectionDoc::of::<super::SetSection>("intervention.set"),
+            SectionDoc::of::<DoseSection>("[[particle.dose]]"),
             SectionDoc::of::<OutputSection>("output"),
         ]
     }
@@ -620,6 +658,7 @@ impl Scenario {
         self.consistency(&mut out);
         self.vessel_consistency(file, &mut out);
         super::intervention_problems(self, &mut out);
+        self.dose_consistency(&mut out);
         out
     }
 

@@ -1,5 +1,5 @@
-//! Consistency checks of the vessel, blood and plasma keys: files that must exist, ordered
-//! bounds, and doses that fit the exact 64-bit particle counts.
+//! Consistency checks of the vessel, blood and plasma keys: files that must exist and ordered
+//! bounds (doses: [`super::dose_checks`]).
 
 use std::path::{Path, PathBuf};
 
@@ -71,15 +71,6 @@ impl Scenario {
             });
         }
         for (i, p) in self.particle.iter().enumerate() {
-            // Exact counts are 64-bit: the dose must fit in a u64.
-            if p.dose_particles >= u64::MAX as f64 {
-                out.push(Problem {
-                    path: format!("particle[{i}].dose_particles"),
-                    value: p.dose_particles.to_string(),
-                    expected: format!("a dose below {:e} particles (exact 64-bit counts)", u64::MAX as f64),
-                    line: None,
-                });
-            }
             let pl = &p.plasma;
             match pl.model {
                 PlasmaModel::Table => {

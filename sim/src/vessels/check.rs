@@ -95,7 +95,7 @@ pub fn derived(p: &Params, _regions: &Regions, out: &mut Vec<Derived>) -> SimRes
             &format!("{} peak concentration", pp.name),
             pp.dose as f64 / p.blood.plasma_volume() * 1e-6,
             "1/mL",
-            "dose / plasma volume",
+            "total dose / plasma volume (the peak of one bolus)",
         ));
     }
     for pp in &p.particles {
