@@ -5,8 +5,8 @@
 //! [`spec`], and consistency between sections). Every problem names the file, the key path, the
 //! value, what was expected and the line.
 
-mod intervention_sections;
 mod dose_checks;
+mod intervention_sections;
 mod sections;
 pub mod spans;
 pub mod spec;
