@@ -283,6 +283,9 @@ pub struct Params {
     pub transport: crate::process::transport::TransportParams,
     pub binding: crate::process::binding::BindingParams,
     pub designs: crate::particles::Designs,
+    pub tissue: crate::terrain::generator::TissueParams,
+    pub oxygen: crate::process::oxygen::OxygenParams,
+    pub growth: crate::terrain::growth::GrowthParams,
 }
 
 impl Params {
@@ -412,6 +415,9 @@ impl Params {
                 uptake_charge_scale: s.uptake.uptake_charge_scale_mV * 1e-3,
             },
             designs: crate::particles::Designs::from_scenario(s),
+            tissue: crate::terrain::generator::TissueParams::resolve(s, file),
+            oxygen: crate::process::oxygen::OxygenParams::resolve(s),
+            growth: crate::terrain::growth::GrowthParams::resolve(s),
             network: {
                 let n = &s.vessels.network;
                 let rel = |w: &str| crate::scenario::scenario_relative(file, w);

@@ -8,6 +8,7 @@
 mod sections;
 pub mod spans;
 pub mod spec;
+mod tissue_sections;
 mod transport_sections;
 mod vessel_checks;
 
@@ -17,6 +18,7 @@ use std::path::{Path, PathBuf};
 pub use sections::*;
 use spans::SpanIndex;
 pub use spec::{Check, KeySpec, Problem, Section, SectionDoc};
+pub use tissue_sections::*;
 pub use transport_sections::*;
 pub use vessel_checks::scenario_relative;
 

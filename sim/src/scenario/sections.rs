@@ -555,6 +555,9 @@ pub struct Scenario {
     pub transport: super::TransportSection,
     pub binding: super::BindingSection,
     pub uptake: super::UptakeSection,
+    pub tissue: super::TissueSection,
+    pub oxygen: super::OxygenSection,
+    pub growth: super::GrowthSection,
     pub blood: BloodSection,
     /// Particle designs, one `[[particle]]` table each.
     pub particle: Vec<ParticleSection>,
@@ -578,6 +581,9 @@ impl Scenario {
             SectionDoc::of::<super::TransportSection>("transport"),
             SectionDoc::of::<super::BindingSection>("binding"),
             SectionDoc::of::<super::UptakeSection>("uptake"),
+            SectionDoc::of::<super::TissueSection>("tissue"),
+            SectionDoc::of::<super::OxygenSection>("oxygen"),
+            SectionDoc::of::<super::GrowthSection>("growth"),
             SectionDoc::of::<NetworkSection>("vessels.network"),
             SectionDoc::of::<BloodSection>("blood"),
             SectionDoc::of::<ParticleSection>("[[particle]]"),
@@ -602,6 +608,9 @@ impl Scenario {
         self.transport.check_into("transport", None, &mut out);
         self.binding.check_into("binding", None, &mut out);
         self.uptake.check_into("uptake", None, &mut out);
+        self.tissue.check_into("tissue", None, &mut out);
+        self.oxygen.check_into("oxygen", None, &mut out);
+        self.growth.check_into("growth", None, &mut out);
         self.blood.check_into("blood", None, &mut out);
         self.particle.check_into("particle", None, &mut out);
         self.output.check_into("output", None, &mut out);
@@ -610,6 +619,7 @@ impl Scenario {
         }
         self.consistency(&mut out);
         self.vessel_consistency(file, &mut out);
+        self.tissue_consistency(file, &mut out);
         out
     }
 

@@ -139,25 +139,26 @@ pub fn normal(g: &[f64], mean: f64, sd: f64, lo: f64, hi: f64) -> Vec<f64> {
     g.iter().map(|x| (mean + sd * x).clamp(lo, hi)).collect()
 }
 
+/// Empirical semivariogram at lag `lag` voxels along every axis (for the statistical tests).
+#[cfg(test)]
+pub(crate) fn semivariogram(l: &Lattice, f: &[f64], lag: usize) -> f64 {
+    let (mut s, mut n) = (0.0, 0.0);
+    for v in 0..l.len() {
+        let ijk = l.ijk(v);
+        for (a, &c) in ijk.iter().enumerate() {
+            if c + lag < l.n[a] {
+                let w = v + lag * l.stride(a);
+                s += 0.5 * (f[v] - f[w]).powi(2);
+                n += 1.0;
+            }
+        }
+    }
+    s / n
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    /// Empirical semivariogram at lag `lag` voxels along every axis.
-    fn semivariogram(l: &Lattice, f: &[f64], lag: usize) -> f64 {
-        let (mut s, mut n) = (0.0, 0.0);
-        for v in 0..l.len() {
-            let ijk = l.ijk(v);
-            for (a, &c) in ijk.iter().enumerate() {
-                if c + lag < l.n[a] {
-                    let w = v + lag * l.stride(a);
-                    s += 0.5 * (f[v] - f[w]).powi(2);
-                    n += 1.0;
-                }
-            }
-        }
-        s / n
-    }
 
     #[test]
     fn field_has_the_requested_moments_and_correlation() {
