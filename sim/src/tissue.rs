@@ -134,11 +134,19 @@ pub fn place_cells(
     stromal_fraction: f64,
     receptor_factor: Option<&[f64]>,
 ) {
-    let mut occ = vec![None; lattice.len()];
-    let mut batch = Vec::new();
-    for (idx, &r) in regions.region.data.iter().enumerate() {
-        let mut s = stream(seed, Domain::Tissue, idx as u64, 0);
-        if s.chance(p.occupancy[r as usize]) {
+    use rayon::prelude::*;
+    let mut occ = Vec::new();
+    // Decisions per voxel in parallel (each from its own stream), collected in voxel order.
+    let batch: Vec<(Cell, Receptors, CellLoad)> = regions
+        .region
+        .data
+        .par_iter()
+        .enumerate()
+        .filter_map(|(idx, &r)| {
+            let mut s = stream(seed, Domain::Tissue, idx as u64, 0);
+            if !s.chance(p.occupancy[r as usize]) {
+                return None;
+            }
             let kind = if r != TUMOUR {
                 CellKind::Host
             } else if s.chance(p.tumour_phagocyte_fraction) {
@@ -153,9 +161,9 @@ pub fn place_cells(
                 CellKind::Host => p.receptors[0],
                 _ => 0.0,
             } * receptor_factor.map_or(1.0, |f| f[idx]);
-            batch.push((Cell { kind, voxel: idx as u32 }, Receptors::new(receptors), CellLoad::default()));
-        }
-    }
+            Some((Cell { kind, voxel: idx as u32 }, Receptors::new(receptors), CellLoad::default()))
+        })
+        .collect();
     spawn_cells(world, lattice.len(), batch, &mut occ);
 }
 

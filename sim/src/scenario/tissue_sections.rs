@@ -133,3 +133,26 @@ impl super::Scenario {
         }
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use crate::scenario::LoadedScenario;
+
+    fn problems(text: &str) -> String {
+        LoadedScenario::from_text(std::path::Path::new("t.toml"), text.to_string()).unwrap_err().to_string()
+    }
+
+    #[test]
+    fn bad_terrain_keys_name_the_file_key_and_allowed_values() {
+        let e = problems("[oxygen]\nhypoxic_threshold = 2.0\n");
+        assert!(e.contains("t.toml") && e.contains("hypoxic_threshold_mmHg"), "{e}");
+        let e = problems("[growth]\ncycle_time_h = 0.1\n");
+        assert!(e.contains("growth.cycle_time_h") && e.contains("[1, 10000]"), "{e}");
+        let e = problems("[oxygen]\nnecrotic_threshold_mmHg = 5.0\nhypoxic_threshold_mmHg = 2.0\n");
+        assert!(e.contains("oxygen.necrotic_threshold_mmHg") && e.contains("at most"), "{e}");
+        let e = problems("[tissue]\ntumour_mask_file = \"no-such.mask\"\n");
+        assert!(e.contains("tissue.tumour_mask_file") && e.contains("no-such.mask"), "{e}");
+        let e = problems("[tissue]\nmatrix_cv = -1.0\n");
+        assert!(e.contains("tissue.matrix_cv") && e.contains(":2"), "{e}");
+    }
+}
