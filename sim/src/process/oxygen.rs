@@ -192,14 +192,14 @@ pub fn solve(
     s.solver.options = options;
     let mut report = OxygenReport::default();
     for it in 0..p.newton_max_iterations {
-        for v in 0..n {
-            let ck = c[v].max(0.0);
+        for (v, &cv) in c.iter().enumerate() {
+            let ck = cv.max(0.0);
             let den = ck + p.km;
             let slope = inputs.vmax[v] * p.km / (den * den);
             s.diag[v] = inputs.wall[v] + vol * slope;
             // For the deficit u = c_b - c (the diffusion of a constant vanishes with zero-flux faces).
             s.rhs[v] = vol * (slope * p.blood + inputs.vmax[v] * ck * ck / (den * den));
-            s.next[v] = p.blood - c[v];
+            s.next[v] = p.blood - cv;
         }
         s.stencil.set_diagonals(&s.diag);
         s.solver.update(&s.stencil).map_err(|e| solver_error(what, e, p.solver_tolerance))?;
