@@ -4,9 +4,10 @@
 //! spectral density `S(k) = sigma^2 (2 pi l^2)^(3/2) exp(-k^2 l^2 / 2)`. Filtering white noise by
 //! `sqrt(S)` in Fourier space and transforming back gives a sample of the field (the spectral
 //! method of Shinozuka and Deodatis 1996, Appl Mech Rev 49:29, in its discrete FFT form). The
-//! transform runs on a box padded by four correlation lengths on each side (rounded up to a length
-//! whose prime factors are 2, 3 and 5), so the periodicity of the discrete transform does not
-//! correlate opposite faces of the lattice. White noise is drawn per voxel of the padded box from
+//! transform runs on a box padded by two correlation lengths on each side (rounded up to a length
+//! whose prime factors are 2, 3 and 5): across the periodic wrap of the discrete transform,
+//! opposite faces of the lattice are at least `4 l` apart, where the correlation is
+//! `exp(-8) = 3e-4`. White noise is drawn per voxel of the padded box from
 //! its own stream: the field depends only on the seed.
 //!
 //! A log-normal field with mean `m` and coefficient of variation `cv` is `exp(mu + s G)` of the
@@ -30,7 +31,7 @@ pub fn gaussian_field(lattice: &Lattice, l: f64, seed: u64, stream_id: u64) -> V
         // Shorter than a voxel: independent values.
         return (0..n).map(|v| stream(seed, Domain::Tissue, stream_id << 40 | v as u64, 7).normal()).collect();
     }
-    let pad = (4.0 * lv).ceil() as usize;
+    let pad = (2.0 * lv).ceil() as usize;
     let dims: [usize; 3] = std::array::from_fn(|a| fft_size(lattice.n[a] + 2 * pad));
     let [px, py, pz] = dims;
     let total = px * py * pz;
