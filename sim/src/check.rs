@@ -3,7 +3,6 @@
 
 use crate::params::Params;
 use crate::scenario::LoadedScenario;
-use crate::tissue::Regions;
 
 /// One line of the check report.
 #[derive(Debug, Clone)]
@@ -22,7 +21,8 @@ pub(crate) fn d(section: &'static str, name: &str, value: f64, units: &'static s
 /// Computes the check report of a scenario (builds the vessel network of the network model,
 /// which can fail on a bad network file).
 pub fn derived(loaded: &LoadedScenario) -> crate::error::SimResult<Vec<Derived>> {
-    let p = Params::resolve_loaded(loaded);
+    let mut p = Params::resolve_loaded(loaded);
+    let regions = crate::terrain::generator::regions(&mut p)?;
     let l = &p.lattice;
     let mut out = Vec::new();
     let n = l.len() as f64;
@@ -36,7 +36,6 @@ pub fn derived(loaded: &LoadedScenario) -> crate::error::SimResult<Vec<Derived>>
         "mm",
         &format!("{:.3} x {:.3} x {:.3} mm", e[0] * 1e3, e[1] * 1e3, e[2] * 1e3),
     ));
-    let regions = Regions::from_geometry(l, &p.tumour);
     let tv = regions.tumour_voxels() as f64;
     out.push(d("tumour", "tumour voxels", tv, "1", &format!("{:.1} % of the lattice", 100.0 * tv / n)));
     out.push(d("tumour", "tumour volume", tv * l.voxel_volume() * 1e9, "mm^3", "voxel count times voxel volume"));
@@ -64,6 +63,7 @@ pub fn derived(loaded: &LoadedScenario) -> crate::error::SimResult<Vec<Derived>>
         "excluding packets",
     ));
     fluid_checks(&p, &mut out);
+    crate::terrain::check_lines(&p, &mut out);
     particle_lines(&p, &mut out);
     dose_lines(&p, &mut out);
     let steps = (p.run.end_time / p.run.time_step).ceil();

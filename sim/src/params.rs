@@ -287,6 +287,9 @@ pub struct Params {
     pub designs: crate::particles::Designs,
     /// Scheduled interventions, in scenario order.
     pub interventions: Vec<crate::process::interventions::Intervention>,
+    pub tissue: crate::terrain::generator::TissueParams,
+    pub oxygen: crate::process::oxygen::OxygenParams,
+    pub growth: crate::terrain::growth::GrowthParams,
 }
 
 impl Params {
@@ -416,6 +419,9 @@ impl Params {
                 uptake_charge_scale: s.uptake.uptake_charge_scale_mV * 1e-3,
             },
             designs: crate::particles::Designs::from_scenario(s),
+            tissue: crate::terrain::generator::TissueParams::resolve(s, file),
+            oxygen: crate::process::oxygen::OxygenParams::resolve(s),
+            growth: crate::terrain::growth::GrowthParams::resolve(s),
             network: {
                 let n = &s.vessels.network;
                 let rel = |w: &str| crate::scenario::scenario_relative(file, w);

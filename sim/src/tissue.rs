@@ -121,18 +121,38 @@ pub struct Occupancy {
 }
 
 /// Places at most one cell per voxel: a voxel holds a cell with the region's probability, drawn
-/// from the voxel's own random stream. Cells are spawned in voxel order, so entity order and
+/// from the voxel's own random stream; a tumour cell is a phagocyte, else a stromal cell, else a
+/// cancer cell, with the fractions given. Receptors are the kind's number times the voxel's
+/// `receptor_factor` (1 without one). Cells are spawned in voxel order, so entity order and
 /// every later table are reproducible.
-pub fn place_cells(world: &mut World, lattice: &Lattice, regions: &Regions, p: &CellParams, seed: u64) {
-    let mut occ = vec![None; lattice.len()];
-    let mut batch = Vec::new();
-    for (idx, &r) in regions.region.data.iter().enumerate() {
-        let mut s = stream(seed, Domain::Tissue, idx as u64, 0);
-        if s.chance(p.occupancy[r as usize]) {
+pub fn place_cells(
+    world: &mut World,
+    lattice: &Lattice,
+    regions: &Regions,
+    p: &CellParams,
+    seed: u64,
+    stromal_fraction: f64,
+    receptor_factor: Option<&[f64]>,
+) {
+    use rayon::prelude::*;
+    let mut occ = Vec::new();
+    // Decisions per voxel in parallel (each from its own stream), collected in voxel order.
+    let batch: Vec<(Cell, Receptors, CellLoad)> = regions
+        .region
+        .data
+        .par_iter()
+        .enumerate()
+        .filter_map(|(idx, &r)| {
+            let mut s = stream(seed, Domain::Tissue, idx as u64, 0);
+            if !s.chance(p.occupancy[r as usize]) {
+                return None;
+            }
             let kind = if r != TUMOUR {
                 CellKind::Host
             } else if s.chance(p.tumour_phagocyte_fraction) {
                 CellKind::Phagocyte
+            } else if stromal_fraction > 0.0 && s.chance(stromal_fraction) {
+                CellKind::Stromal
             } else {
                 CellKind::Cancer
             };
@@ -140,14 +160,26 @@ pub fn place_cells(world: &mut World, lattice: &Lattice, regions: &Regions, p: &
                 CellKind::Cancer => p.receptors[1],
                 CellKind::Host => p.receptors[0],
                 _ => 0.0,
-            };
-            batch.push((Cell { kind, voxel: idx as u32 }, Receptors::new(receptors), CellLoad::default()));
-        }
-    }
-    let voxels: Vec<u32> = batch.iter().map(|b| b.0.voxel).collect();
+            } * receptor_factor.map_or(1.0, |f| f[idx]);
+            Some((Cell { kind, voxel: idx as u32 }, Receptors::new(receptors), CellLoad::default()))
+        })
+        .collect();
+    spawn_cells(world, lattice.len(), batch, &mut occ);
+}
+
+/// Spawns cells (in the order given) and inserts the [`Occupancy`] of the lattice.
+pub fn spawn_cells(
+    world: &mut World,
+    voxels: usize,
+    batch: Vec<(Cell, Receptors, CellLoad)>,
+    occ: &mut Vec<Option<Entity>>,
+) {
+    occ.clear();
+    occ.resize(voxels, None);
+    let at: Vec<u32> = batch.iter().map(|b| b.0.voxel).collect();
     let entities: Vec<Entity> = world.spawn_batch(batch).collect();
-    for (v, e) in voxels.into_iter().zip(entities) {
+    for (v, e) in at.into_iter().zip(entities) {
         occ[v as usize] = Some(e);
     }
-    world.insert_resource(Occupancy { cell: occ });
+    world.insert_resource(Occupancy { cell: std::mem::take(occ) });
 }

@@ -26,7 +26,6 @@ use crate::params::Params;
 use crate::process;
 use crate::progress::Progress;
 use crate::scenario::LoadedScenario;
-use crate::tissue::{Matrix, Regions, place_cells};
 
 /// The process sets of one step, in the order they run.
 #[derive(SystemSet, Debug, Clone, Copy, PartialEq, Eq, Hash)]
@@ -145,15 +144,11 @@ pub struct Simulation {
 impl Simulation {
     /// Builds the world of a scenario: terrain, entities and process resources.
     pub fn new(loaded: &LoadedScenario) -> SimResult<Self> {
-        let params = Params::resolve_loaded(loaded);
+        let mut params = Params::resolve_loaded(loaded);
         let mut world = World::new();
-        let lattice = params.lattice.clone();
-        let regions = Regions::from_geometry(&lattice, &params.tumour);
-        let matrix = Matrix::from_regions(&regions, &params.matrix);
-        place_cells(&mut world, &lattice, &regions, &params.cells, params.run.seed);
-        world.insert_resource(lattice);
-        world.insert_resource(regions);
-        world.insert_resource(matrix);
+        world.insert_resource(params.lattice.clone());
+        // Terrain: regions, matrix, cells, network; grown first when the scenario asks.
+        crate::terrain::build(&mut world, &mut params)?;
         world.insert_resource(params.run.clone());
         world.insert_resource(params.tumour.clone());
         world.insert_resource(params.matrix.clone());

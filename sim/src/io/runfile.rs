@@ -218,6 +218,11 @@ impl RunWriter {
         &self.path
     }
 
+    /// The open HDF5 file (for groups other than the snapshots, such as `/growth`).
+    pub fn file(&self) -> &File {
+        &self.file
+    }
+
     /// Number of snapshots written completely.
     pub fn finished_snapshots(&self) -> u64 {
         self.finished

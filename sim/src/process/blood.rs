@@ -259,7 +259,11 @@ pub fn install(world: &mut World, schedule: &mut Schedule, params: &Params) -> S
         particles: params.particles.clone(),
     };
     let l = world.resource::<Lattice>().clone();
-    let net = build_network(&params.network, &l, &params.tumour, params.run.seed)?;
+    // The terrain builds (and may grow) the network; build it here when it did not.
+    let net = match world.remove_resource::<Network>() {
+        Some(net) => net,
+        None => build_network(&params.network, &l, &params.tumour, params.run.seed)?,
+    };
     let d = derive(&net, &l, world.resource::<Regions>(), &settings)?;
     world.insert_resource(net);
     insert(world, d);

@@ -7,6 +7,7 @@ pub mod blood;
 pub mod exchange;
 pub mod interventions;
 pub mod output;
+pub mod oxygen;
 pub mod plasma;
 pub mod pressure;
 pub mod transport;
@@ -21,6 +22,7 @@ pub fn install(world: &mut World, schedule: &mut Schedule, params: &Params) -> S
     // Vessels and plasma first: the pressure process reads the `WallFluid` the blood process inserts.
     blood::install(world, schedule, params)?;
     plasma::install(world, schedule, params)?;
+    oxygen::install(world, schedule, params)?;
     output::install(world, schedule, params);
     pressure::install(world, schedule, params)?;
     world.insert_resource(params.designs.clone());

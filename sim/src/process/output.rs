@@ -211,6 +211,7 @@ pub fn open_run_file(
         sim.params.output.compression_level,
         explicit,
     )?;
+    crate::terrain::growth::write_history(&sim.world, writer.file(), &lattice, sim.params.output.compression_level)?;
     sim.world.resource_mut::<OutputFile>().0 = Some(writer);
     Ok(path)
 }

@@ -375,7 +375,7 @@ fn input_ticks(world: &World) -> Option<[Tick; 3]> {
     Some([tick::<WallFluid>(world)?, tick::<Matrix>(world)?, tick::<Lymphatics>(world)?])
 }
 
-fn solver_error(what: &str, e: SolveError, tolerance: f64) -> SimError {
+pub(crate) fn solver_error(what: &str, e: SolveError, tolerance: f64) -> SimError {
     match e {
         SolveError::NotConverged { iterations, relative_residual } => {
             SimError::Solver { what: what.to_string(), iterations, residual: relative_residual, tolerance }

@@ -10,6 +10,7 @@ mod intervention_sections;
 mod sections;
 pub mod spans;
 pub mod spec;
+mod tissue_sections;
 mod transport_sections;
 mod vessel_checks;
 
@@ -20,6 +21,7 @@ pub use intervention_sections::*;
 pub use sections::*;
 use spans::SpanIndex;
 pub use spec::{Check, KeySpec, Problem, Section, SectionDoc};
+pub use tissue_sections::*;
 pub use transport_sections::*;
 pub use vessel_checks::scenario_relative;
 

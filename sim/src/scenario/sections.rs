@@ -592,6 +592,9 @@ pub struct Scenario {
     pub transport: super::TransportSection,
     pub binding: super::BindingSection,
     pub uptake: super::UptakeSection,
+    pub tissue: super::TissueSection,
+    pub oxygen: super::OxygenSection,
+    pub growth: super::GrowthSection,
     pub blood: BloodSection,
     /// Particle designs, one `[[particle]]` table each.
     pub particle: Vec<ParticleSection>,
@@ -617,6 +620,9 @@ impl Scenario {
             SectionDoc::of::<super::TransportSection>("transport"),
             SectionDoc::of::<super::BindingSection>("binding"),
             SectionDoc::of::<super::UptakeSection>("uptake"),
+            SectionDoc::of::<super::TissueSection>("tissue"),
+            SectionDoc::of::<super::OxygenSection>("oxygen"),
+            SectionDoc::of::<super::GrowthSection>("growth"),
             SectionDoc::of::<NetworkSection>("vessels.network"),
             SectionDoc::of::<BloodSection>("blood"),
             SectionDoc::of::<ParticleSection>("[[particle]]"),
@@ -648,6 +654,9 @@ impl Scenario {
         self.transport.check_into("transport", None, &mut out);
         self.binding.check_into("binding", None, &mut out);
         self.uptake.check_into("uptake", None, &mut out);
+        self.tissue.check_into("tissue", None, &mut out);
+        self.oxygen.check_into("oxygen", None, &mut out);
+        self.growth.check_into("growth", None, &mut out);
         self.blood.check_into("blood", None, &mut out);
         self.particle.check_into("particle", None, &mut out);
         self.intervention.check_into("intervention", None, &mut out);
@@ -659,6 +668,7 @@ impl Scenario {
         self.vessel_consistency(file, &mut out);
         super::intervention_problems(self, &mut out);
         self.dose_consistency(&mut out);
+        self.tissue_consistency(file, &mut out);
         out
     }
 

@@ -18,7 +18,7 @@ pub fn scenario_relative(file: Option<&Path>, written: &str) -> PathBuf {
     }
 }
 
-fn need_file(file: Option<&Path>, path: &str, written: &str, what: &str, out: &mut Vec<Problem>) {
+pub(super) fn need_file(file: Option<&Path>, path: &str, written: &str, what: &str, out: &mut Vec<Problem>) {
     if written.is_empty() {
         out.push(Problem {
             path: path.into(),

@@ -4,9 +4,11 @@
 //! spectral density `S(k) = sigma^2 (2 pi l^2)^(3/2) exp(-k^2 l^2 / 2)`. Filtering white noise by
 //! `sqrt(S)` in Fourier space and transforming back gives a sample of the field (the spectral
 //! method of Shinozuka and Deodatis 1996, Appl Mech Rev 49:29, in its discrete FFT form). The
-//! transform runs on a box padded by four correlation lengths on each side, so the periodicity
-//! of the discrete transform does not correlate opposite faces of the lattice. White noise is
-//! drawn per voxel of the padded box from its own stream: the field depends only on the seed.
+//! transform runs on a box padded by two correlation lengths on each side (rounded up to a length
+//! whose prime factors are 2, 3 and 5): across the periodic wrap of the discrete transform,
+//! opposite faces of the lattice are at least `4 l` apart, where the correlation is
+//! `exp(-8) = 3e-4`. White noise is drawn per voxel of the padded box from
+//! its own stream: the field depends only on the seed.
 //!
 //! A log-normal field with mean `m` and coefficient of variation `cv` is `exp(mu + s G)` of the
 //! standard field `G`, with `s^2 = ln(1 + cv^2)` and `mu = ln m - s^2 / 2` (moments of the
@@ -29,8 +31,8 @@ pub fn gaussian_field(lattice: &Lattice, l: f64, seed: u64, stream_id: u64) -> V
         // Shorter than a voxel: independent values.
         return (0..n).map(|v| stream(seed, Domain::Tissue, stream_id << 40 | v as u64, 7).normal()).collect();
     }
-    let pad = (4.0 * lv).ceil() as usize;
-    let dims: [usize; 3] = std::array::from_fn(|a| (lattice.n[a] + 2 * pad).next_power_of_two().max(2));
+    let pad = (2.0 * lv).ceil() as usize;
+    let dims: [usize; 3] = std::array::from_fn(|a| fft_size(lattice.n[a] + 2 * pad));
     let [px, py, pz] = dims;
     let total = px * py * pz;
     let mut data: Vec<Complex<f64>> = (0..total)
@@ -38,43 +40,57 @@ pub fn gaussian_field(lattice: &Lattice, l: f64, seed: u64, stream_id: u64) -> V
         .map(|i| Complex::new(stream(seed, Domain::Tissue, stream_id << 40 | i as u64, 7).normal(), 0.0))
         .collect();
     fft3(&mut data, dims, false);
-    // Filter: sqrt of the spectral density on the discrete wavenumbers, normalised below.
+    // Filter: sqrt of the spectral density on the discrete wavenumbers, normalised below. The
+    // Gaussian filter is separable, H = hx(i) hy(j) hz(k).
     let two_pi = std::f64::consts::TAU;
+    let h1 = |m: usize| -> Vec<f64> {
+        (0..m)
+            .map(|i| {
+                let f = freq(i, m);
+                (-0.25 * two_pi * two_pi * f * f * lv * lv).exp()
+            })
+            .collect()
+    };
+    let (hx, hy, hz) = (h1(px), h1(py), h1(pz));
     data.par_chunks_mut(px).enumerate().for_each(|(row, line)| {
-        let j = row % py;
-        let k = row / py;
-        let fy = freq(j, py);
-        let fz = freq(k, pz);
-        for (i, c) in line.iter_mut().enumerate() {
-            let fx = freq(i, px);
-            let k2 = two_pi * two_pi * (fx * fx + fy * fy + fz * fz);
-            *c *= (-0.25 * k2 * lv * lv).exp();
+        let hyz = hy[row % py] * hz[row / py];
+        for (c, &h) in line.iter_mut().zip(&hx) {
+            *c *= h * hyz;
         }
     });
     fft3(&mut data, dims, true);
     // The filter's squared sum sets the variance of the result; divide it out exactly.
-    let mut norm = 0.0;
-    for k in 0..pz {
-        let fz = freq(k, pz);
-        for j in 0..py {
-            let fy = freq(j, py);
-            for i in 0..px {
-                let fx = freq(i, px);
-                let k2 = two_pi * two_pi * (fx * fx + fy * fy + fz * fz);
-                norm += (-0.5 * k2 * lv * lv).exp();
-            }
-        }
-    }
+    let sq = |h: &[f64]| h.iter().map(|x| x * x).sum::<f64>();
+    let norm = sq(&hx) * sq(&hy) * sq(&hz);
     // Forward and inverse unnormalised transforms scale by `total`; white noise of unit variance
     // filtered by H has variance sum|H|^2 / total per sample after the 1/total of the inverse.
     let scale = 1.0 / (norm * total as f64).sqrt();
     let mut out = vec![0.0; n];
-    for (v, o) in out.iter_mut().enumerate() {
+    out.par_iter_mut().enumerate().for_each(|(v, o)| {
         let [i, j, k] = lattice.ijk(v);
         let idx = (i + pad) + px * ((j + pad) + py * (k + pad));
         *o = data[idx].re * scale;
-    }
+    });
     out
+}
+
+/// The smallest length of at least `n` (and 2) whose prime factors are 2, 3 and 5: the mixed-radix
+/// transforms of these lengths are about as fast as powers of two, and the padded box stays
+/// close to the size it needs.
+fn fft_size(n: usize) -> usize {
+    let mut m = n.max(2);
+    loop {
+        let mut r = m;
+        for p in [2, 3, 5] {
+            while r.is_multiple_of(p) {
+                r /= p;
+            }
+        }
+        if r == 1 {
+            return m;
+        }
+        m += 1;
+    }
 }
 
 fn freq(i: usize, n: usize) -> f64 {
@@ -83,45 +99,58 @@ fn freq(i: usize, n: usize) -> f64 {
     if i <= n / 2.0 { i / n } else { (i - n) / n }
 }
 
-/// In-place 3D FFT (x fastest), unnormalised.
+/// In-place 3D FFT (x fastest), unnormalised. Lines along y and z are gathered into contiguous
+/// blocks (one per plane, or per row of planes) and transformed in one call per block, with the
+/// scratch allocated once per block.
 fn fft3(data: &mut [Complex<f64>], dims: [usize; 3], inverse: bool) {
     let [px, py, pz] = dims;
+    let zero = Complex::new(0.0, 0.0);
     let mut planner = FftPlanner::<f64>::new();
-    let plan = |n: usize, planner: &mut FftPlanner<f64>| {
-        if inverse { planner.plan_fft_inverse(n) } else { planner.plan_fft_forward(n) }
-    };
-    // x lines are contiguous.
-    let fx = plan(px, &mut planner);
-    data.par_chunks_mut(px).for_each(|line| fx.process(line));
-    // y and z lines: gather, transform, scatter, plane by plane or column by column.
-    let fy = plan(py, &mut planner);
-    data.par_chunks_mut(px * py).for_each(|plane| {
-        let mut buf = vec![Complex::new(0.0, 0.0); py];
-        for i in 0..px {
-            for j in 0..py {
-                buf[j] = plane[i + px * j];
+    let mut plan = |n: usize| if inverse { planner.plan_fft_inverse(n) } else { planner.plan_fft_forward(n) };
+    let (fx, fy, fz) = (plan(px), plan(py), plan(pz));
+    let plane_len = px * py;
+    data.par_chunks_mut(plane_len).for_each(|plane| {
+        // x lines are contiguous: the plane is py of them.
+        let mut scratch = vec![zero; fx.get_inplace_scratch_len().max(fy.get_inplace_scratch_len())];
+        fx.process_with_scratch(plane, &mut scratch[..fx.get_inplace_scratch_len()]);
+        // y lines: transpose the plane to [i][j], transform, transpose back.
+        let mut t = vec![zero; plane_len];
+        for j in 0..py {
+            for i in 0..px {
+                t[i * py + j] = plane[i + px * j];
             }
-            fy.process(&mut buf);
-            for j in 0..py {
-                plane[i + px * j] = buf[j];
+        }
+        fy.process_with_scratch(&mut t, &mut scratch[..fy.get_inplace_scratch_len()]);
+        for j in 0..py {
+            for i in 0..px {
+                plane[i + px * j] = t[i * py + j];
             }
         }
     });
-    let fz = plan(pz, &mut planner);
-    let stride = px * py;
-    let cols: Vec<Vec<Complex<f64>>> = (0..stride)
+    // z lines: for each row j, gather [i][k] across the planes, transform, scatter plane by plane.
+    let data_ro: &[Complex<f64>] = data;
+    let blocks: Vec<Vec<Complex<f64>>> = (0..py)
         .into_par_iter()
-        .map(|c| {
-            let mut buf: Vec<Complex<f64>> = (0..pz).map(|k| data[c + stride * k]).collect();
-            fz.process(&mut buf);
-            buf
+        .map(|j| {
+            let mut t = vec![zero; px * pz];
+            for k in 0..pz {
+                let row = &data_ro[px * (j + py * k)..px * (j + py * k) + px];
+                for (i, &v) in row.iter().enumerate() {
+                    t[i * pz + k] = v;
+                }
+            }
+            let mut scratch = vec![zero; fz.get_inplace_scratch_len()];
+            fz.process_with_scratch(&mut t, &mut scratch);
+            t
         })
         .collect();
-    for (c, buf) in cols.into_iter().enumerate() {
-        for (k, v) in buf.into_iter().enumerate() {
-            data[c + stride * k] = v;
+    data.par_chunks_mut(plane_len).enumerate().for_each(|(k, plane)| {
+        for (j, t) in blocks.iter().enumerate() {
+            for i in 0..px {
+                plane[i + px * j] = t[i * pz + k];
+            }
         }
-    }
+    });
 }
 
 /// Maps a standard Gaussian field to a log-normal field of mean `mean` and coefficient of
@@ -139,25 +168,26 @@ pub fn normal(g: &[f64], mean: f64, sd: f64, lo: f64, hi: f64) -> Vec<f64> {
     g.iter().map(|x| (mean + sd * x).clamp(lo, hi)).collect()
 }
 
+/// Empirical semivariogram at lag `lag` voxels along every axis (for the statistical tests).
+#[cfg(test)]
+pub(crate) fn semivariogram(l: &Lattice, f: &[f64], lag: usize) -> f64 {
+    let (mut s, mut n) = (0.0, 0.0);
+    for v in 0..l.len() {
+        let ijk = l.ijk(v);
+        for (a, &c) in ijk.iter().enumerate() {
+            if c + lag < l.n[a] {
+                let w = v + lag * l.stride(a);
+                s += 0.5 * (f[v] - f[w]).powi(2);
+                n += 1.0;
+            }
+        }
+    }
+    s / n
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    /// Empirical semivariogram at lag `lag` voxels along every axis.
-    fn semivariogram(l: &Lattice, f: &[f64], lag: usize) -> f64 {
-        let (mut s, mut n) = (0.0, 0.0);
-        for v in 0..l.len() {
-            let ijk = l.ijk(v);
-            for (a, &c) in ijk.iter().enumerate() {
-                if c + lag < l.n[a] {
-                    let w = v + lag * l.stride(a);
-                    s += 0.5 * (f[v] - f[w]).powi(2);
-                    n += 1.0;
-                }
-            }
-        }
-        s / n
-    }
 
     #[test]
     fn field_has_the_requested_moments_and_correlation() {
