@@ -50,7 +50,13 @@ valency = 2
 fn main() {
     let args: Vec<usize> = std::env::args().skip(1).filter_map(|a| a.parse::<f64>().ok()).map(|v| v as usize).collect();
     let sizes = if args.is_empty() { vec![100_000, 1_000_000, 10_000_000] } else { args };
-    let loaded = LoadedScenario::from_text(Path::new("bench.toml"), SCENARIO.to_string()).expect("scenario");
+    // BENCH_RADIUS_NM sets the particle's radius (default 50 nm): smaller particles diffuse
+    // farther per step and take more sub-steps.
+    let text = match std::env::var("BENCH_RADIUS_NM") {
+        Ok(r) => SCENARIO.replace("hydrodynamic_radius_nm = 50.0", &format!("hydrodynamic_radius_nm = {r}")),
+        Err(_) => SCENARIO.to_string(),
+    };
+    let loaded = LoadedScenario::from_text(Path::new("bench.toml"), text).expect("scenario");
     let mut sim = Simulation::new(&loaded).expect("world");
     let l = sim.lattice().clone();
     sim.step().expect("first step");
@@ -98,6 +104,57 @@ fn main() {
                 move_packets(&l, &fields, &vel, &tp, &mut p, 1, k as u64, 20.0, Drift::Ito);
             }
             let d1 = t1.elapsed().as_secs_f64();
+            // The same packets with every packet on the fine sub-steps (no uniform marks).
+            {
+                let mut fine = fields.clone();
+                fine.uniform.clear();
+                let mut p2 = sim.world.resource::<Packets>().clone();
+                let t2 = Instant::now();
+                for k in 0..steps {
+                    move_packets(&l, &fine, &vel, &tp, &mut p2, 1, k as u64, 20.0, Drift::Ito);
+                }
+                let d2 = t2.elapsed().as_secs_f64();
+                println!(
+                    "packet_motion_fine_substeps_only_{:.0e} {:.3e} 1/s",
+                    n as f64,
+                    (p2.len() * steps) as f64 / d2
+                );
+                // And the marked fields again, now that the fine run has warmed the same memory.
+                let mut p3 = sim.world.resource::<Packets>().clone();
+                let t3 = Instant::now();
+                for k in 0..steps {
+                    move_packets(&l, &fields, &vel, &tp, &mut p3, 1, k as u64, 20.0, Drift::Ito);
+                }
+                println!(
+                    "packet_motion_steps_per_s_warm_{:.0e} {:.3e} 1/s",
+                    n as f64,
+                    (p3.len() * steps) as f64 / t3.elapsed().as_secs_f64()
+                );
+            }
+            if std::env::var("BENCH_DIAG").is_ok() {
+                let (mut uni, mut adv, mut reach) = (0usize, 0usize, 0usize);
+                let h = l.h;
+                for i in 0..p.len() {
+                    let v = p.voxel[i] as usize;
+                    uni += usize::from(fields.uniform[0][v]);
+                    let [ii, jj, kk] = l.ijk(v);
+                    let [nx, ny, _] = l.n;
+                    let u = vel.x[ii + (nx + 1) * (jj + ny * kk)]
+                        .abs()
+                        .max(vel.y[ii + nx * (jj + (ny + 1) * kk)].abs())
+                        .max(vel.z[v].abs());
+                    adv += usize::from(16.0 * u * 20.0 / h <= 1.0);
+                    let d = fields.ad[0][v] / fields.a[0][v] / (h * h);
+                    reach += usize::from((6.0 * d * 20.0).sqrt() <= 1.25);
+                }
+                let n = p.len() as f64;
+                println!(
+                    "diag uniform {:.3} advective_ok {:.3} reach_ok {:.3}",
+                    uni as f64 / n,
+                    adv as f64 / n,
+                    reach as f64 / n
+                );
+            }
             println!("packet_motion_steps_per_s_{:.0e} {:.3e} 1/s", n as f64, (p.len() * steps) as f64 / d1);
             if std::env::var("BENCH_SMALL").is_ok() {
                 let small = interstice_sim::lattice::Lattice::new([16, 16, 16], l.h * 8.0, l.origin);
