@@ -516,13 +516,9 @@ impl Params {
     fn with_interventions(mut self, s: &Scenario, file: Option<&std::path::Path>) -> Self {
         use crate::process::interventions::{Action, Intervention, Place};
         use crate::scenario::InterventionRegion;
-        let mut order: Vec<usize> = (0..s.intervention.len()).collect();
-        order.sort_by(|&a, &b| s.intervention[a].start_h.total_cmp(&s.intervention[b].start_h));
-        let mut current = s.clone();
-        current.intervention.clear();
-        let mut out: Vec<(usize, Intervention)> = Vec::new();
-        for i in order {
-            let iv = &s.intervention[i];
+        let in_force = crate::scenario::set_scenarios(s);
+        let mut out = Vec::new();
+        for (i, iv) in s.intervention.iter().enumerate() {
             if !iv.enabled {
                 continue;
             }
@@ -562,25 +558,21 @@ impl Params {
                     wall_factor: p.wall_factor,
                     tissue_factor: p.tissue_factor,
                 }
-            } else if let Some(set) = &iv.set {
-                // Validated before resolution: the change applies.
-                if let Ok(next) = crate::scenario::with_key(&current, &set.key, &set.value.0) {
-                    current = next;
-                }
+            } else if let (Some(set), Some(Ok(in_force))) = (&iv.set, &in_force[i]) {
+                // Validated before resolution, so the change applies.
                 Action::Set {
                     key: set.key.clone(),
                     value: set.value.0.to_string(),
-                    params: Box::new(Self::resolve_in(&current, file)),
+                    params: Box::new(Self::resolve_in(in_force, file)),
                 }
             } else {
                 continue;
             };
             let start = iv.start_h * HOUR;
             let end = if iv.duration_h > 0.0 { Some(start + iv.duration_h * HOUR) } else { None };
-            out.push((i, Intervention { name: iv.name.clone(), start, end, place, action }));
+            out.push(Intervention { name: iv.name.clone(), start, end, place, action });
         }
-        out.sort_by_key(|(i, _)| *i);
-        self.interventions = out.into_iter().map(|(_, iv)| iv).collect();
+        self.interventions = out;
         self
     }
 }

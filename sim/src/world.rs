@@ -70,7 +70,8 @@ impl Clock {
 
 /// Times (s) at which a step must end besides snapshots: doses, the start and end of
 /// interventions, scheduled parameter changes. Processes add theirs when they install; the list
-/// is a function of the scenario, so a checkpoint need not save it.
+/// is a function of the scenario, so a checkpoint need not save it. (The extra snapshot times of
+/// [`crate::process::output::ExtraSnapshots`] are a list of the same kind.)
 #[derive(Resource, Debug, Clone, Default)]
 pub struct Breakpoints {
     times: Vec<f64>,
@@ -92,6 +93,13 @@ impl Breakpoints {
         let eps = 1e-9 * time.abs().max(1.0);
         let i = self.times.partition_point(|&x| x <= time + eps);
         self.times.get(i).copied()
+    }
+
+    /// The breakpoint within rounding (a relative 1e-9) of `time`, if any.
+    pub fn near(&self, time: f64) -> Option<f64> {
+        let tol = |x: f64| 1e-9 * x.max(1.0);
+        let i = self.times.partition_point(|&x| x < time - tol(time));
+        self.times.get(i).copied().filter(|&b| (time - b).abs() <= tol(b))
     }
 
     /// All breakpoints, s, increasing.
@@ -273,9 +281,7 @@ pub fn advance_clock(mut clock: ResMut<Clock>, breaks: Res<Breakpoints>) {
     if (clock.time - clock.next_snapshot).abs() <= 1e-9 * clock.next_snapshot.max(1.0) {
         clock.time = clock.next_snapshot;
     }
-    if let Some(b) = breaks.next_after(clock.time - 2e-9 * clock.time.max(1.0))
-        && (clock.time - b).abs() <= 1e-9 * b.max(1.0)
-    {
+    if let Some(b) = breaks.near(clock.time) {
         clock.time = b;
     }
     if (clock.time - clock.end).abs() <= 1e-9 * clock.end.max(1.0) {

@@ -226,12 +226,8 @@ fn state(s: &mut Simulation) -> (Vec<u64>, Vec<u32>, String, String, Vec<[u64; 8
     (ids, vox, ledger, pools, loads)
 }
 
-#[test]
-fn a_scheduled_change_equals_a_restart_with_the_new_value() {
-    // Run A changes koff and the internalisation rate at 1 h; run B runs the old scenario to 1 h,
-    // writes a checkpoint, and continues from it with a scenario that has the new values from the
-    // start. Their states agree exactly at the end.
-    let base = r#"
+/// A small tumour with network vessels and one targeted design, for the restart checks.
+const SMALL_NETWORK: &str = r#"
 [run]
 end_time_h = 2.0
 time_step_s = 30.0
@@ -251,6 +247,27 @@ valency = 2
 koff_per_s = 1e-4
 internalisation_per_s = 1e-4
 "#;
+
+/// Runs `before` to `t_checkpoint` (s) and writes a checkpoint; builds a world from `after`,
+/// restores the checkpoint into it and runs it to `t_end`. Returns both worlds.
+fn restarted(before: &str, after: &str, t_checkpoint: f64, t_end: f64) -> (Simulation, Simulation) {
+    let dir = tempfile::tempdir().unwrap();
+    let ck = dir.path().join("r.ckpt.h5");
+    let mut old = sim(before);
+    run_to(&mut old, t_checkpoint);
+    interstice_sim::checkpoint::write(&mut old.world, &ck, "same").unwrap();
+    let mut new = sim(after);
+    interstice_sim::checkpoint::read(&mut new.world, &ck, "same").unwrap();
+    run_to(&mut new, t_end);
+    (old, new)
+}
+
+#[test]
+fn a_scheduled_change_equals_a_restart_with_the_new_value() {
+    // Run A changes koff and the internalisation rate at 1 h; run B runs the old scenario to 1 h,
+    // writes a checkpoint, and continues from it with a scenario that has the new values from the
+    // start. Their states agree exactly at the end.
+    let base = SMALL_NETWORK;
     let with_set = format!(
         "{base}\n[[intervention]]\nname = \"a\"\nstart_h = 1.0\n[intervention.set]\nkey = \"particle[0].ligand.koff_per_s\"\nvalue = 1e-2\n\
          [[intervention]]\nname = \"b\"\nstart_h = 1.0\n[intervention.set]\nkey = \"particle[0].ligand.internalisation_per_s\"\nvalue = 5e-3\n"
@@ -260,14 +277,7 @@ internalisation_per_s = 1e-4
         .replace("internalisation_per_s = 1e-4", "internalisation_per_s = 5e-3");
     let mut a = sim(&with_set);
     run_to(&mut a, 7200.0);
-    let dir = tempfile::tempdir().unwrap();
-    let ck = dir.path().join("b.ckpt.h5");
-    let mut b_old = sim(base);
-    run_to(&mut b_old, 3600.0);
-    interstice_sim::checkpoint::write(&mut b_old.world, &ck, "same").unwrap();
-    let mut b = sim(&changed);
-    interstice_sim::checkpoint::read(&mut b.world, &ck, "same").unwrap();
-    run_to(&mut b, 7200.0);
+    let (mut b_old, mut b) = restarted(base, &changed, 3600.0, 7200.0);
     let (sa, sb) = (state(&mut a), state(&mut b));
     assert!(!sa.0.is_empty(), "particles reached the tissue");
     assert_eq!(sa, sb);
@@ -300,23 +310,10 @@ fn a_run_with_interventions_resumed_from_a_checkpoint_continues_exactly() {
     // Every effect is recomputed from the values at the start of the run at its last update time,
     // so a world rebuilt from the scenario and restored from a checkpoint taken mid-treatment
     // continues exactly as the uninterrupted run.
-    let text = r#"
-[run]
-end_time_h = 2.0
-time_step_s = 60.0
-snapshot_interval_h = 0.5
-[lattice]
-shape = [16, 16, 16]
-voxel_um = 20.0
-[tumour]
-radius_um = 120.0
-[vessels]
-model = "network"
-[[particle]]
-name = "np"
-packet_particles = 1e6
-[particle.ligand]
-valency = 2
+    let text = format!(
+        "{}{}",
+        SMALL_NETWORK.replace("time_step_s = 30.0", "time_step_s = 60.0"),
+        r#"
 [[intervention]]
 name = "enzyme"
 start_h = 0.25
@@ -336,17 +333,11 @@ start_h = 0.75
 duration_h = 0.75
 [intervention.peptide]
 particle = "np"
-"#;
-    let mut a = sim(text);
+"#
+    );
+    let mut a = sim(&text);
     run_to(&mut a, 7200.0);
-    let dir = tempfile::tempdir().unwrap();
-    let ck = dir.path().join("r.ckpt.h5");
-    let mut b0 = sim(text);
-    run_to(&mut b0, 3600.0);
-    interstice_sim::checkpoint::write(&mut b0.world, &ck, "same").unwrap();
-    let mut b = sim(text);
-    interstice_sim::checkpoint::read(&mut b.world, &ck, "same").unwrap();
-    run_to(&mut b, 7200.0);
+    let (_, mut b) = restarted(&text, &text, 3600.0, 7200.0);
     assert!(!state(&mut a).0.is_empty());
     assert_eq!(state(&mut a), state(&mut b));
     assert_eq!(a.world.resource::<Matrix>().collagen.data, b.world.resource::<Matrix>().collagen.data);

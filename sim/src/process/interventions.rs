@@ -238,7 +238,7 @@ pub fn install(world: &mut World, schedule: &mut Schedule, params: &Params) {
     for iv in &list {
         for t in [Some(iv.start), iv.end].into_iter().flatten() {
             if t > 0.0 && t < end {
-                extra.add(t);
+                extra.0.add(t);
             }
         }
     }

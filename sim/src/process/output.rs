@@ -26,20 +26,10 @@ pub struct OutputParts {
     pub series: Vec<SeriesPart>,
 }
 
-/// Snapshot times besides the regular ones, s, increasing: the start and end of every
-/// intervention, so the run file holds the state just before and after each change.
+/// Snapshot times besides the regular ones, s: the start and end of every intervention, so the
+/// run file holds the state just before and after each change.
 #[derive(Resource, Debug, Clone, Default)]
-pub struct ExtraSnapshots(pub Vec<f64>);
-
-impl ExtraSnapshots {
-    /// Adds a time (s).
-    pub fn add(&mut self, t: f64) {
-        let i = self.0.partition_point(|&x| x < t);
-        if self.0.get(i) != Some(&t) {
-            self.0.insert(i, t);
-        }
-    }
-}
+pub struct ExtraSnapshots(pub crate::world::Breakpoints);
 
 /// The time of the next snapshot after `time`: the next multiple of the interval or the next
 /// extra snapshot time, whichever comes first, at most the end.
@@ -48,14 +38,8 @@ fn next_snapshot_time(world: &World, time: f64) -> f64 {
     let end = world.resource::<Clock>().end;
     let eps = 1e-9 * time.abs().max(1.0);
     let regular = ((time + eps) / interval).floor() + 1.0;
-    let mut next = (regular * interval).min(end);
-    if let Some(extra) = world.get_resource::<ExtraSnapshots>() {
-        let i = extra.0.partition_point(|&x| x <= time + eps);
-        if let Some(&t) = extra.0.get(i) {
-            next = next.min(t);
-        }
-    }
-    next
+    let extra = world.get_resource::<ExtraSnapshots>().and_then(|e| e.0.next_after(time));
+    (regular * interval).min(end).min(extra.unwrap_or(f64::INFINITY))
 }
 
 /// The open run file.

@@ -253,15 +253,40 @@ impl InterventionSection {
     }
 }
 
-/// Consistency of the `[[intervention]]` tables with each other and with the rest.
-pub fn intervention_problems(s: &Scenario, out: &mut Vec<Problem>) {
-    let mut names = std::collections::BTreeSet::new();
+/// Why a `set` cannot apply: the sub-key to blame (`key` or `value`) and what it expects.
+pub type SetProblem = (&'static str, String);
+
+/// The scenario in force from the start of each `set` intervention, by intervention (None for
+/// other actions): the file's scenario without its interventions, with every enabled `set` that
+/// starts earlier (or at the same time and earlier in the file) applied in start order. Checking
+/// and resolution both read it, so they see the same sequence of changes.
+pub fn set_scenarios(s: &Scenario) -> Vec<Option<Result<Scenario, SetProblem>>> {
     let mut current = s.clone();
     current.intervention.clear();
     let mut order: Vec<usize> = (0..s.intervention.len()).collect();
     order.sort_by(|&a, &b| s.intervention[a].start_h.total_cmp(&s.intervention[b].start_h));
-    for &i in &order {
+    let mut out = vec![None; s.intervention.len()];
+    for i in order {
         let iv = &s.intervention[i];
+        let Some(set) = &iv.set else { continue };
+        let result = if !settable(&set.key) {
+            Err(("key", format!("a key that may change during a run: {}", SETTABLE.join(", "))))
+        } else {
+            with_key(&current, &set.key, &set.value.0).map_err(|why| ("value", why))
+        };
+        if let (Ok(next), true) = (&result, iv.enabled) {
+            current = next.clone();
+        }
+        out[i] = Some(result);
+    }
+    out
+}
+
+/// Consistency of the `[[intervention]]` tables with each other and with the rest.
+pub fn intervention_problems(s: &Scenario, out: &mut Vec<Problem>) {
+    let mut names = std::collections::BTreeSet::new();
+    let in_force = set_scenarios(s);
+    for (i, iv) in s.intervention.iter().enumerate() {
         let path = format!("intervention[{i}]");
         let problem = |key: &str, value: String, expected: String| Problem {
             path: format!("{path}{key}"),
@@ -310,28 +335,19 @@ pub fn intervention_problems(s: &Scenario, out: &mut Vec<Problem>) {
                 format!("the name of a particle design: {:?}", s.particle.iter().map(|d| &d.name).collect::<Vec<_>>()),
             ));
         }
-        if let Some(set) = &iv.set {
-            if !settable(&set.key) {
-                out.push(problem(
-                    ".set.key",
-                    format!("{:?}", set.key),
-                    format!("a key that may change during a run: {}", SETTABLE.join(", ")),
-                ));
-                continue;
-            }
-            match with_key(&current, &set.key, &set.value.0) {
-                Err(why) => out.push(problem(".set.value", set.value.0.to_string(), why)),
+        if let (Some(set), Some(result)) = (&iv.set, &in_force[i]) {
+            match result {
+                Err((sub, why)) => {
+                    let value = if *sub == "key" { format!("{:?}", set.key) } else { set.value.0.to_string() };
+                    out.push(problem(&format!(".set.{sub}"), value, why.clone()));
+                }
                 Ok(next) => {
-                    let inner = next.problems(None);
-                    for p in inner {
+                    for p in next.problems(None) {
                         out.push(problem(
                             ".set.value",
                             set.value.0.to_string(),
                             format!("a valid value of `{}`: {}", p.path, p.expected),
                         ));
-                    }
-                    if iv.enabled {
-                        current = next;
                     }
                 }
             }
