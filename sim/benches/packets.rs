@@ -90,28 +90,31 @@ fn main() {
         }
         let dt = t0.elapsed().as_secs_f64();
         let moved = sim.world.resource::<Packets>().len();
-        // The motion kernel alone, on the same packets and fields.
-        {
+        // The motion kernel alone, on the same packets and fields (BENCH_WHOLE_ONLY skips it).
+        if std::env::var("BENCH_WHOLE_ONLY").is_err() {
             use interstice_sim::process::transport::{
-                Drift, FaceVelocity, MotionFields, TransportParams, move_packets,
+                Drift, FaceVelocity, MotionCache, MotionFields, TransportParams, move_packets, move_packets_packed,
+                substeps,
             };
             let fields = sim.world.resource::<MotionFields>().clone();
             let vel = sim.world.resource::<FaceVelocity>().clone();
             let tp = sim.world.resource::<TransportParams>().clone();
+            let packed = MotionCache::build(&l, &fields, &vel);
             let mut p = sim.world.resource::<Packets>().clone();
             let t1 = Instant::now();
             for k in 0..steps {
-                move_packets(&l, &fields, &vel, &tp, &mut p, 1, k as u64, 20.0, Drift::Ito);
+                move_packets_packed(&l, &packed, &tp, &mut p, 1, k as u64, 20.0, Drift::Ito);
             }
             let d1 = t1.elapsed().as_secs_f64();
             // The same packets with every packet on the fine sub-steps (no uniform marks).
             {
                 let mut fine = fields.clone();
                 fine.uniform.clear();
+                let fine = MotionCache::build(&l, &fine, &vel);
                 let mut p2 = sim.world.resource::<Packets>().clone();
                 let t2 = Instant::now();
                 for k in 0..steps {
-                    move_packets(&l, &fine, &vel, &tp, &mut p2, 1, k as u64, 20.0, Drift::Ito);
+                    move_packets_packed(&l, &fine, &tp, &mut p2, 1, k as u64, 20.0, Drift::Ito);
                 }
                 let d2 = t2.elapsed().as_secs_f64();
                 println!(
@@ -123,7 +126,7 @@ fn main() {
                 let mut p3 = sim.world.resource::<Packets>().clone();
                 let t3 = Instant::now();
                 for k in 0..steps {
-                    move_packets(&l, &fields, &vel, &tp, &mut p3, 1, k as u64, 20.0, Drift::Ito);
+                    move_packets_packed(&l, &packed, &tp, &mut p3, 1, k as u64, 20.0, Drift::Ito);
                 }
                 println!(
                     "packet_motion_steps_per_s_warm_{:.0e} {:.3e} 1/s",
@@ -133,6 +136,7 @@ fn main() {
             }
             if std::env::var("BENCH_DIAG").is_ok() {
                 let (mut uni, mut adv, mut reach) = (0usize, 0usize, 0usize);
+                let (mut sub, mut diff_sub, mut umax_sum) = (0.0f64, 0.0f64, 0.0f64);
                 let h = l.h;
                 for i in 0..p.len() {
                     let v = p.voxel[i] as usize;
@@ -143,10 +147,25 @@ fn main() {
                         .abs()
                         .max(vel.y[ii + nx * (jj + (ny + 1) * kk)].abs())
                         .max(vel.z[v].abs());
-                    adv += usize::from(16.0 * u * 20.0 / h <= 1.0);
+                    let uv = u * 20.0 / h;
+                    adv += usize::from(uv <= 0.25);
                     let d = fields.ad[0][v] / fields.a[0][v] / (h * h);
                     reach += usize::from((6.0 * d * 20.0).sqrt() <= 1.25);
+                    let ns = if fields.uniform[0][v] && uv <= 0.25 && (6.0 * d * 20.0).sqrt() + uv <= 1.25 {
+                        1.0
+                    } else {
+                        substeps(d, u / h, 0.0, 20.0, 0.25) as f64
+                    };
+                    sub += ns;
+                    diff_sub += substeps(d, 0.0, 0.0, 20.0, 0.25) as f64;
+                    umax_sum += u;
                 }
+                println!(
+                    "diag mean_substeps {:.2} mean_diffusive_substeps {:.2} mean_face_speed_um_s {:.3}",
+                    sub / p.len() as f64,
+                    diff_sub / p.len() as f64,
+                    umax_sum / p.len() as f64 * 1e6
+                );
                 let n = p.len() as f64;
                 println!(
                     "diag uniform {:.3} advective_ok {:.3} reach_ok {:.3}",
@@ -174,6 +193,29 @@ fn main() {
                     (p2.len() * steps) as f64 / t2.elapsed().as_secs_f64()
                 );
             }
+        }
+        // BENCH_PHASES: time each process of the step once more, one by one, on this world.
+        if std::env::var("BENCH_PHASES").is_ok() {
+            use bevy_ecs::system::RunSystemOnce;
+            use interstice_sim::process::{binding, exchange, transport};
+            macro_rules! phase {
+                ($name:expr, $sys:expr) => {{
+                    let t = Instant::now();
+                    let reps = 3;
+                    for _ in 0..reps {
+                        sim.world.run_system_once($sys).expect("system runs");
+                    }
+                    println!("phase_{} {:.1} ms", $name, t.elapsed().as_secs_f64() * 1e3 / reps as f64);
+                }};
+            }
+            phase!("refresh_exchange", exchange::refresh_exchange);
+            phase!("exchange", exchange::exchange_system);
+            phase!("transport", transport::transport_system);
+            phase!("packet_reactions", binding::packet_reactions);
+            phase!("cell_kinetics", binding::cell_kinetics);
+            phase!("matrix_kinetics", binding::matrix_kinetics);
+            phase!("release_held", binding::release_held);
+            phase!("snapshot_when_due", interstice_sim::process::output::snapshot_when_due);
         }
         let label = format!("{:.0e}", n as f64).replace("e", "e");
         println!("packet_steps_per_s_{label} {:.3e} 1/s", (moved as f64 * steps as f64) / dt);

@@ -2,11 +2,12 @@
 //!
 //! Each random decision of the engine draws from a stream that depends only on those four
 //! numbers, never on which thread runs it or in what order: results are bit-identical for any
-//! thread count. Streams are xoshiro256++ generators (Blackman and Vigna 2021, ACM TOMS 47:36)
-//! whose state is filled by SplitMix64 from a key that mixes the four numbers.
-
-use rand_core::{Rng, SeedableRng};
-use rand_xoshiro::Xoshiro256PlusPlus;
+//! thread count. A stream is the SplitMix64 sequence (Steele, Lea and Flood 2014, "Fast
+//! splittable pseudorandom number generators", OOPSLA 2014: 453) that starts from a 64-bit key
+//! mixing the four numbers: one addition and one 64-bit mix per draw and nothing to set up, so
+//! the millions of short streams a step opens (one per packet and process) cost a few
+//! nanoseconds each. SplitMix64 passes the BigCrush battery (same paper); streams are a few
+//! to a few thousand draws long against a period of 2^64.
 
 /// The process a stream belongs to, so that two processes never share a stream.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -36,24 +37,53 @@ pub fn mix64(mut z: u64) -> u64 {
 /// The 64-bit key of stream (seed, domain, id, step).
 #[inline]
 pub fn stream_key(seed: u64, domain: Domain, id: u64, step: u64) -> u64 {
-    mix64(mix64(mix64(mix64(seed) ^ domain as u64) ^ id) ^ step)
+    Streams::new(seed, domain).key(id, step)
 }
 
 /// The generator of stream (seed, domain, id, step).
 #[inline]
 pub fn stream(seed: u64, domain: Domain, id: u64, step: u64) -> Stream {
-    Stream(Xoshiro256PlusPlus::seed_from_u64(stream_key(seed, domain, id, step)))
+    Stream(stream_key(seed, domain, id, step))
 }
 
-/// A random stream with the draws the engine needs.
+/// The streams of one (seed, domain), with the part of the key they share mixed once: a loop
+/// opening a stream per packet pays two mixes per stream instead of four. Gives the same
+/// streams as [`stream`].
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Streams(u64);
+
+impl Streams {
+    /// The streams of `seed` and `domain`.
+    #[inline]
+    pub fn new(seed: u64, domain: Domain) -> Self {
+        Streams(mix64(mix64(seed) ^ domain as u64))
+    }
+
+    /// Key of the stream of `id` at `step`.
+    #[inline]
+    pub fn key(self, id: u64, step: u64) -> u64 {
+        mix64(mix64(self.0 ^ id) ^ step)
+    }
+
+    /// The stream of `id` at `step`.
+    #[inline]
+    pub fn at(self, id: u64, step: u64) -> Stream {
+        Stream(self.key(id, step))
+    }
+}
+
+/// A random stream with the draws the engine needs: SplitMix64 state.
 #[derive(Debug, Clone)]
-pub struct Stream(pub Xoshiro256PlusPlus);
+pub struct Stream(pub u64);
 
 impl Stream {
-    /// Next raw 64 bits.
+    /// Next raw 64 bits (SplitMix64: the state advances by the golden-ratio increment and is
+    /// mixed by [`mix64`], which adds that increment before mixing).
     #[inline]
     pub fn next_u64(&mut self) -> u64 {
-        self.0.next_u64()
+        let z = mix64(self.0);
+        self.0 = self.0.wrapping_add(0x9e37_79b9_7f4a_7c15);
+        z
     }
 
     /// Uniform in [0, 1), 53 random bits.
@@ -145,25 +175,54 @@ impl Stream {
         let (q, flip) = if p > 0.5 { (1.0 - p, true) } else { (p, false) };
         let mean = n as f64 * q;
         let k = if mean < 30.0 {
-            let r = q / (1.0 - q);
-            let mut pk = (n as f64 * (-q).ln_1p()).exp();
-            let mut u = self.uniform();
-            let mut k = 0u64;
-            while u > pk && k < n {
-                u -= pk;
-                pk *= r * (n - k) as f64 / (k + 1) as f64;
-                k += 1;
-                if pk <= 0.0 {
-                    break;
-                }
-            }
-            k
+            let u = self.uniform();
+            binomial_inversion(u, n, (n as f64 * (-q).ln_1p()).exp(), q / (1.0 - q))
         } else {
             let sd = (mean * (1.0 - q)).sqrt();
             (mean + sd * self.normal() + 0.5).floor().clamp(0.0, n as f64) as u64
         };
         if flip { n - k } else { k }
     }
+}
+
+impl Stream {
+    /// Binomial deviate of `n` trials whose success probability is `1 - exp(-x)` (a first-order
+    /// rate times a time step, `x >= 0`): the probability mass at zero is then exactly
+    /// `exp(-n x)`, so the common draw of no success costs one exponential and one uniform.
+    /// Small means by inversion (BINV, Kachitvichyanukul and Schmeiser 1988) started from that
+    /// mass, with ratio `p / (1 - p) = exp(x) - 1`; otherwise as [`Stream::binomial`].
+    pub fn binomial_of_rate(&mut self, n: u64, x: f64) -> u64 {
+        if n == 0 || x <= 0.0 {
+            return 0;
+        }
+        let p = -(-x).exp_m1();
+        if p > 0.5 || n as f64 * p >= 30.0 {
+            return self.binomial(n, p);
+        }
+        let p0 = (-(n as f64) * x).exp();
+        let u = self.uniform();
+        if u <= p0 {
+            return 0;
+        }
+        binomial_inversion(u, n, p0, x.exp_m1())
+    }
+}
+
+/// Inversion of the binomial distribution function by sequential search from `k = 0` (BINV):
+/// uniform `u`, `n` trials, mass at zero `p0`, odds `r = p / (1 - p)`.
+#[inline]
+fn binomial_inversion(mut u: f64, n: u64, p0: f64, r: f64) -> u64 {
+    let mut pk = p0;
+    let mut k = 0u64;
+    while u > pk && k < n {
+        u -= pk;
+        pk *= r * (n - k) as f64 / (k + 1) as f64;
+        k += 1;
+        if pk <= 0.0 {
+            break;
+        }
+    }
+    k
 }
 
 /// Stochastic rounding: `floor(x)` plus one with probability `frac(x)`; unbiased.
@@ -185,6 +244,28 @@ mod tests {
         assert_ne!(base, stream(7, Domain::Binding, 3, 10).next_u64());
         assert_ne!(base, stream(7, Domain::Transport, 4, 10).next_u64());
         assert_ne!(base, stream(7, Domain::Transport, 3, 11).next_u64());
+    }
+
+    #[test]
+    fn streams_are_the_reference_splitmix64_sequence() {
+        // Against the SplitMix64 of the `rand_xoshiro` crate (an outside implementation of
+        // Steele, Lea and Flood 2014) and two values of the reference C code (splitmix64.c of
+        // Blackman and Vigna, as quoted in that crate's tests).
+        use rand_core::{Rng, SeedableRng};
+        let key = 1_477_776_061_723_855_037u64;
+        let mut ours = Stream(key);
+        assert_eq!(ours.next_u64(), 1_985_237_415_132_408_290);
+        assert_eq!(ours.next_u64(), 2_979_275_885_539_914_483);
+        for k in [0u64, 1, key, u64::MAX, stream_key(3, Domain::Transport, 9, 4)] {
+            let mut a = Stream(k);
+            let mut b = rand_xoshiro::SplitMix64::seed_from_u64(k);
+            for _ in 0..1000 {
+                assert_eq!(a.next_u64(), b.next_u64());
+            }
+        }
+        // The shared-prefix form gives the same streams.
+        let s = Streams::new(11, Domain::Binding);
+        assert_eq!(s.key(5, 6), stream_key(11, Domain::Binding, 5, 6));
     }
 
     #[test]
@@ -233,35 +314,73 @@ mod tests {
 mod binomial_tests {
     use super::*;
 
-    #[test]
-    fn small_mean_binomial_matches_the_probability_mass_function() {
-        // Chi-square goodness of fit of 50 000 draws of Binomial(200, 0.05) against the exact
-        // mass function, pooled to cells of expected count >= 5; 0.1 % critical value.
-        let (n, p, draws) = (200u64, 0.05, 50_000usize);
-        let mut s = stream(4, Domain::Tissue, 1, 2);
-        let mut counts = vec![0f64; n as usize + 1];
-        for _ in 0..draws {
-            counts[s.binomial(n, p) as usize] += 1.0;
-        }
+    /// Chi-square statistic and degrees of freedom of draw counts `counts[k]` against the
+    /// Binomial(n, p) mass function, pooled into cells of expected count >= 5 (a short tail
+    /// joins the last cell).
+    fn binomial_chi_square(n: u64, p: f64, counts: &[f64]) -> (f64, usize) {
+        let draws: f64 = counts.iter().sum();
         let mut pmf = vec![0f64; n as usize + 1];
         pmf[0] = (1.0 - p).powi(n as i32);
         for k in 1..=n as usize {
             pmf[k] = pmf[k - 1] * (n as f64 - k as f64 + 1.0) / k as f64 * p / (1.0 - p);
         }
-        let (mut chi, mut cells, mut eo, mut ee) = (0.0, 0, 0.0, 0.0);
+        let mut pooled: Vec<(f64, f64)> = Vec::new();
+        let (mut eo, mut ee) = (0.0, 0.0);
         for k in 0..=n as usize {
             eo += counts[k];
-            ee += pmf[k] * draws as f64;
+            ee += pmf[k] * draws;
             if ee >= 5.0 {
-                chi += (eo - ee).powi(2) / ee;
-                cells += 1;
+                pooled.push((eo, ee));
                 eo = 0.0;
                 ee = 0.0;
             }
         }
-        let dof = (cells - 1) as f64;
+        if let Some(last) = pooled.last_mut() {
+            last.0 += eo;
+            last.1 += ee;
+        }
+        let chi = pooled.iter().map(|(o, e)| (o - e).powi(2) / e).sum();
+        (chi, pooled.len().saturating_sub(1).max(1))
+    }
+
+    /// Counts of `draws` draws of `draw`, indexed by value (0..=n).
+    fn counts(n: u64, draws: usize, mut draw: impl FnMut() -> u64) -> Vec<f64> {
+        let mut c = vec![0f64; n as usize + 1];
+        for _ in 0..draws {
+            c[draw() as usize] += 1.0;
+        }
+        c
+    }
+
+    #[test]
+    fn binomial_of_a_rate_matches_the_probability_mass_function() {
+        // Chi-square goodness of fit of 50 000 draws against the exact Binomial(n, 1 - exp(-x))
+        // mass function; 0.1 % critical values (chi-square quantiles from SciPy,
+        // `scipy.stats.chi2.ppf(0.999, df)` for df = 1..30).
+        let crit = [
+            10.83, 13.82, 16.27, 18.47, 20.52, 22.46, 24.32, 26.12, 27.88, 29.59, 31.26, 32.91, 34.53, 36.12, 37.70,
+            39.25, 40.79, 42.31, 43.82, 45.31, 46.80, 48.27, 49.73, 51.18, 52.62, 54.05, 55.48, 56.89, 58.30, 59.70,
+        ];
+        for &(n, x) in &[(1000u64, 1e-4f64), (200, 0.02), (10, 0.3), (5, 0.9)] {
+            let mut s = stream(5, Domain::Tissue, n, 3);
+            let c = counts(n, 50_000, || s.binomial_of_rate(n, x));
+            let (chi, df) = binomial_chi_square(n, -(-x).exp_m1(), &c);
+            assert!(df <= crit.len(), "{df} degrees of freedom");
+            assert!(chi < crit[df - 1], "n {n} x {x}: chi2 {chi} on {df} df");
+        }
+    }
+
+    #[test]
+    fn small_mean_binomial_matches_the_probability_mass_function() {
+        // Chi-square goodness of fit of 50 000 draws of Binomial(200, 0.05) against the exact
+        // mass function; 0.1 % critical value.
+        let (n, p) = (200u64, 0.05);
+        let mut s = stream(4, Domain::Tissue, 1, 2);
+        let c = counts(n, 50_000, || s.binomial(n, p));
+        let (chi, df) = binomial_chi_square(n, p, &c);
+        let dof = df as f64;
         // Wilson-Hilferty 0.999 quantile.
         let crit = dof * (1.0 - 2.0 / (9.0 * dof) + 3.090_232 * (2.0 / (9.0 * dof)).sqrt()).powi(3);
-        assert!(chi < crit, "chi-square {chi} over {cells} cells, critical {crit}");
+        assert!(chi < crit, "chi-square {chi} on {df} degrees of freedom, critical {crit}");
     }
 }

@@ -37,10 +37,11 @@ use rayon::prelude::*;
 
 use crate::lattice::Lattice;
 use crate::params::Params;
+use crate::particles::packets::{PREFETCH_AHEAD, prefetch};
 use crate::particles::{Designs, Packets};
 use crate::process::accounting::Ledger;
 use crate::process::transport::MotionFields;
-use crate::rng::{Domain, Stream, stream};
+use crate::rng::{Domain, Stream, Streams, stream};
 use crate::scenario::{Coating, ReceptorTarget};
 use crate::tissue::{Cell, CellKind, CellLoad, MAX_SPECIES, Matrix, Occupancy, Receptors};
 use crate::world::{Clock, Phase, Seed};
@@ -208,6 +209,18 @@ pub struct CellInterval(pub u64);
 #[derive(Resource, Debug, Default)]
 pub struct ActiveCells(pub EntityIndexSet);
 
+/// The active cells sorted by the phase of the kinetics interval their voxel falls in (cell
+/// `voxel` updates at the steps with `(step + voxel) % interval == 0`), so a step visits only
+/// the cells due. Kept by [`cell_kinetics`]: extended as cells join the active set, rebuilt when
+/// cells move, appear or die, or the interval changes.
+#[derive(Debug, Default)]
+pub struct DueCells {
+    interval: u64,
+    /// Active cells already sorted into phases.
+    seen: usize,
+    phases: Vec<EntityIndexSet>,
+}
+
 /// Particles gathered at a voxel and ready to leave as a packet: (voxel, species, particles).
 #[derive(Resource, Debug, Default)]
 pub struct Releases(pub Mutex<Vec<(u32, u8, u64, u64)>>);
@@ -249,7 +262,12 @@ enum EventKind {
 #[derive(Resource, Default)]
 pub struct EventBuffers {
     chunks: Vec<Vec<Event>>,
-    merged: Vec<Event>,
+    /// Chunks filled by the last pass.
+    used: usize,
+    /// Per species and voxel: particles the voxel's cell bound and took up in this settlement.
+    gained: Vec<Vec<[u64; 2]>>,
+    /// Voxels whose cell gained particles in this settlement.
+    touched: Vec<u32>,
 }
 
 const CHUNK: usize = 2048;
@@ -269,29 +287,73 @@ fn split(rng: &mut Stream, mut n: u64, k: &[f64], mut total: f64, out: &mut [u64
     }
 }
 
+/// The rates of the packet reactions that do not depend on the receptors left, per species and
+/// voxel: `[k_phago, k_ads, k_drain, kon_eff / V_acc]` (1/s, and 1/s per free receptor; the
+/// last is zero where the voxel's cell does not carry the species' receptor), or all zero where
+/// the species cannot reach the voxel's fluid. One record per voxel, so a packet reads one
+/// cache line; rebuilt by [`packet_reactions`] when the cells, matrix, lymph flow, motion
+/// coefficients or kinetics change.
+#[derive(Debug, Default)]
+pub struct ReactionRates {
+    rates: Vec<Vec<[f64; 4]>>,
+}
+
+impl ReactionRates {
+    /// Recomputes every record.
+    #[allow(clippy::too_many_arguments)]
+    pub fn rebuild(
+        &mut self,
+        l: &Lattice,
+        kin: &Kinetics,
+        sites: &CellSites,
+        motion: &MotionFields,
+        matrix: &Matrix,
+        p: &BindingParams,
+        lymph: &LymphFlow,
+    ) {
+        let vol = l.voxel_volume();
+        let n = l.len();
+        self.rates.resize_with(kin.species.len(), Vec::new);
+        for (s, out) in self.rates.iter_mut().enumerate() {
+            out.resize(n, [0.0; 4]);
+            let k = &kin.species[s];
+            out.par_iter_mut().enumerate().for_each(|(v, r)| {
+                let vacc = motion.a[s][v] * vol;
+                if vacc <= 0.0 {
+                    *r = [0.0; 4];
+                    return;
+                }
+                let kind = sites.kind[v];
+                let bind = match k.target {
+                    Some(t) if kind == t as u8 => k.kon_eff / vacc,
+                    _ => 0.0,
+                };
+                let phago = if kind == CellKind::Phagocyte as u8 { k.phagocytosis } else { 0.0 };
+                let phi = matrix.collagen.data[v] + matrix.gag.data[v];
+                *r = [phago, k.adsorption * phi / p.matrix_reference_fraction, lymph.0[v] / vacc, bind];
+            });
+        }
+    }
+}
+
 /// One parallel pass over the free packets: drainage is applied at once (booked in the
 /// returned counts); binding, phagocytosis and adsorption become events.
 #[allow(clippy::too_many_arguments)]
 fn react_packets(
-    l: &Lattice,
-    kin: &Kinetics,
+    rates: &ReactionRates,
     sites: &CellSites,
-    motion: &MotionFields,
-    matrix: &Matrix,
-    p: &BindingParams,
-    lymph: &LymphFlow,
     packets: &mut Packets,
     bufs: &mut EventBuffers,
     seed: u64,
     step: u64,
     dt: f64,
 ) -> [u64; MAX_SPECIES] {
-    let vol = l.voxel_volume();
     let n_chunks = packets.len().div_ceil(CHUNK);
     if bufs.chunks.len() < n_chunks {
         bufs.chunks.resize_with(n_chunks, Vec::new);
     }
     let Packets { id, voxel, species, weight, .. } = packets;
+    let streams = Streams::new(seed, Domain::Binding);
     let drained = weight
         .par_chunks_mut(CHUNK)
         .zip(voxel.par_chunks(CHUNK))
@@ -303,32 +365,25 @@ fn react_packets(
             ev.clear();
             let mut drained = [0u64; MAX_SPECIES];
             for i in 0..wt.len() {
+                if let Some(&ahead) = vox.get(i + PREFETCH_AHEAD) {
+                    let (a, t) = (ahead as usize, sp[i + PREFETCH_AHEAD] as usize);
+                    prefetch(&rates.rates[t][a]);
+                    prefetch(&sites.free[a]);
+                }
                 let w = wt[i];
                 if w == 0 {
                     continue;
                 }
                 let s = sp[i] as usize;
                 let v = vox[i] as usize;
-                let k = &kin.species[s];
-                let vacc = motion.a[s][v] * vol;
-                if vacc <= 0.0 {
-                    continue;
-                }
-                let kind = sites.kind[v];
-                let k_bind = match k.target {
-                    Some(t) if kind == t as u8 => k.kon_eff * sites.free(v) / vacc,
-                    _ => 0.0,
-                };
-                let k_phago = if kind == CellKind::Phagocyte as u8 { k.phagocytosis } else { 0.0 };
-                let phi = matrix.collagen.data[v] + matrix.gag.data[v];
-                let k_ads = k.adsorption * phi / p.matrix_reference_fraction;
-                let k_drain = lymph.0[v] / vacc;
+                let [k_phago, k_ads, k_drain, bind] = rates.rates[s][v];
+                let k_bind = if bind > 0.0 { bind * sites.free(v) } else { 0.0 };
                 let total = k_bind + k_phago + k_ads + k_drain;
                 if total <= 0.0 {
                     continue;
                 }
-                let mut rng = stream(seed, Domain::Binding, ids[i], step);
-                let n = rng.binomial(w, 1.0 - (-total * dt).exp());
+                let mut rng = streams.at(ids[i], step);
+                let n = rng.binomial_of_rate(w, total * dt);
                 if n == 0 {
                     continue;
                 }
@@ -363,12 +418,7 @@ fn react_packets(
                 a
             },
         );
-    bufs.merged.clear();
-    for ev in bufs.chunks.iter().take(n_chunks) {
-        bufs.merged.extend_from_slice(ev);
-    }
-    // A total order: voxel, then packet id, then kind.
-    bufs.merged.sort_unstable();
+    bufs.used = n_chunks;
     drained
 }
 
@@ -378,11 +428,7 @@ pub fn packet_reactions(
     lattice: Res<Lattice>,
     kin: Res<Kinetics>,
     sites: Res<CellSites>,
-    motion: Res<MotionFields>,
-    matrix: Res<Matrix>,
-    params: Res<BindingParams>,
-    lymph: Res<LymphFlow>,
-    occupancy: Res<Occupancy>,
+    (motion, matrix, params, lymph): (Res<MotionFields>, Res<Matrix>, Res<BindingParams>, Res<LymphFlow>),
     clock: Res<Clock>,
     seed: Res<Seed>,
     mut packets: ResMut<Packets>,
@@ -390,47 +436,87 @@ pub fn packet_reactions(
     mut mload: ResMut<MatrixLoad>,
     mut ledger: ResMut<Ledger>,
     mut active: ResMut<ActiveCells>,
-    mut cells: Query<(&mut Receptors, &mut CellLoad)>,
+    mut cells: Query<(Entity, &Cell, &mut Receptors, &mut CellLoad)>,
+    mut rates: Local<ReactionRates>,
 ) {
-    let drained = react_packets(
-        &lattice,
-        &kin,
-        &sites,
-        &motion,
-        &matrix,
-        &params,
-        &lymph,
-        &mut packets,
-        &mut bufs,
-        seed.0,
-        clock.step,
-        clock.dt,
-    );
+    let stale = rates.rates.len() != kin.species.len() || rates.rates.first().is_some_and(|r| r.len() != lattice.len());
+    if stale
+        || kin.is_changed()
+        || sites.is_changed()
+        || motion.is_changed()
+        || matrix.is_changed()
+        || params.is_changed()
+        || lymph.is_changed()
+    {
+        rates.rebuild(&lattice, &kin, &sites, &motion, &matrix, &params, &lymph);
+    }
+    let drained = react_packets(&rates, &sites, &mut packets, &mut bufs, seed.0, clock.step, clock.dt);
     for (total, n) in ledger.drained.iter_mut().zip(drained) {
         *total += n;
     }
-    for e in &bufs.merged {
+    // Events are settled in packet order (chunks in order, each in packet order): the packets'
+    // order is the same for any thread count, and so is every settlement. The voxel's mirror of
+    // its cell's free receptors ([`CellSites`]) is the account binding draws on; what each cell
+    // gained is gathered per voxel and handed to the cells afterwards in one parallel pass in
+    // their own storage order (reading a cell's components per event would wait on memory).
+    let EventBuffers { chunks, used, gained, touched } = &mut *bufs;
+    let ns = kin.species.len();
+    if gained.len() != ns || gained.first().is_some_and(|g| g.len() != lattice.len()) {
+        *gained = vec![vec![[0u64; 2]; lattice.len()]; ns];
+    }
+    touched.clear();
+    for e in chunks.iter().take(*used).flatten() {
         let s = e.species as usize;
+        let v = e.voxel as usize;
         match e.kind {
-            EventKind::Adsorption => mload.bound[s][e.voxel as usize] += e.count,
-            EventKind::Phagocytosis | EventKind::Bind => {
-                let Some(entity) = occupancy.cell[e.voxel as usize] else {
-                    unreachable!("reaction with a cell in an empty voxel")
-                };
-                let (mut rec, mut load) = cells.get_mut(entity).expect("occupied voxel has a cell");
-                active.0.insert(entity);
-                if e.kind == EventKind::Phagocytosis {
-                    load.internalised[s] += e.count;
-                } else {
-                    let val = kin.species[s].valency as f64;
-                    let room = (rec.free / val).floor().max(0.0) as u64;
-                    let accepted = e.count.min(room);
-                    load.bound[s] += accepted;
-                    rec.free -= accepted as f64 * val;
-                    sites.set_free(e.voxel as usize, rec.free);
+            EventKind::Adsorption => mload.bound[s][v] += e.count,
+            EventKind::Phagocytosis => {
+                gained[s][v][1] += e.count;
+                touched.push(e.voxel);
+            }
+            EventKind::Bind => {
+                let val = kin.species[s].valency as f64;
+                let free = sites.free(v);
+                let room = (free / val).floor().max(0.0) as u64;
+                let accepted = e.count.min(room);
+                if accepted > 0 {
+                    gained[s][v][0] += accepted;
+                    sites.set_free(v, free - accepted as f64 * val);
                     packets.weight[e.index as usize] -= accepted;
+                    touched.push(e.voxel);
                 }
             }
+        }
+    }
+    if touched.is_empty() {
+        return;
+    }
+    let newly = Mutex::new(Vec::new());
+    let gained_ref = &*gained;
+    let sites_ref = &*sites;
+    cells.par_iter_mut().for_each(|(entity, cell, mut rec, mut load)| {
+        let v = cell.voxel as usize;
+        if gained_ref.iter().all(|g| g[v] == [0, 0]) {
+            return;
+        }
+        if load.bound.iter().chain(&load.internalised).all(|&x| x == 0) {
+            newly.lock().expect("no panics while held").push(entity);
+        }
+        for (s, g) in gained_ref.iter().enumerate() {
+            load.bound[s] += g[v][0];
+            load.internalised[s] += g[v][1];
+        }
+        rec.free = sites_ref.free(v);
+    });
+    // Cells that took their first particles join the active set, in entity order.
+    let mut newly = newly.into_inner().expect("no panics while held");
+    newly.sort_unstable();
+    for e in newly {
+        active.0.insert(e);
+    }
+    for &v in touched.iter() {
+        for g in gained.iter_mut() {
+            g[v as usize] = [0, 0];
         }
     }
 }
@@ -447,17 +533,31 @@ pub fn cell_kinetics(
     interval: Res<CellInterval>,
     sites: Res<CellSites>,
     releases: Res<Releases>,
-    active: Res<ActiveCells>,
+    (active, occupancy): (Res<ActiveCells>, Res<Occupancy>),
     clock: Res<Clock>,
     seed: Res<Seed>,
     mut cells: Query<(&Cell, &mut Receptors, &mut CellLoad)>,
+    mut due: Local<DueCells>,
 ) {
     let now = clock.time + clock.dt;
     let vol = lattice.voxel_volume();
     let (step, seed, m) = (clock.step, seed.0, interval.0);
     let last_step = now >= clock.end * (1.0 - 1e-12);
     let ns = kin.species.len();
-    cells.par_iter_many_unique_mut(&active.0).for_each(|item| {
+    // The active cells due at this step: those whose voxel is in this step's phase of the
+    // interval (all of them at the last step).
+    if due.interval != m || occupancy.is_changed() || due.seen > active.0.len() {
+        *due = DueCells { interval: m, seen: 0, phases: vec![EntityIndexSet::default(); m as usize] };
+    }
+    for &e in active.0.iter().skip(due.seen) {
+        if let Ok((cell, ..)) = cells.get(e) {
+            due.phases[(u64::from(cell.voxel) % m) as usize].insert(e);
+        }
+    }
+    due.seen = active.0.len();
+    let phase = ((m - step % m) % m) as usize;
+    let list = if last_step { &active.0 } else { &due.phases[phase] };
+    cells.par_iter_many_unique_mut(list).for_each(|item| {
         let Ok((cell, mut rec, mut load)) = item else { return };
         if !last_step && (step + u64::from(cell.voxel)) % m != 0 {
             return;

@@ -23,11 +23,12 @@ use rayon::prelude::*;
 
 use crate::lattice::Lattice;
 use crate::params::Params;
+use crate::particles::packets::{PREFETCH_AHEAD, prefetch};
 use crate::particles::{Designs, Packets};
 use crate::process::blood::SegmentWalls;
 use crate::process::plasma::PlasmaPools;
 use crate::process::transport::MotionFields;
-use crate::rng::{Domain, stream};
+use crate::rng::{Domain, Streams, stream};
 use crate::scenario::VesselModel;
 use crate::tissue::{MAX_SPECIES, Regions};
 use crate::vessels::VesselRaster;
@@ -250,6 +251,7 @@ pub fn exchange_system(
     let WallExchange { return_rate, .. } = &*ex;
     let (step, seed) = (clock.step, seed.0);
     let Packets { id, voxel, species, weight, .. } = &mut *packets;
+    let streams = Streams::new(seed, Domain::Extravasation);
     let returned = weight
         .par_chunks_mut(2048)
         .zip(voxel.par_chunks(2048))
@@ -258,13 +260,16 @@ pub fn exchange_system(
         .map(|(((wt, vox), ids), sp)| {
             let mut back = [0u64; MAX_SPECIES];
             for i in 0..wt.len() {
+                if let Some(&ahead) = vox.get(i + PREFETCH_AHEAD) {
+                    prefetch(&return_rate[sp[i + PREFETCH_AHEAD] as usize][ahead as usize]);
+                }
                 let s = sp[i] as usize;
                 let k = return_rate[s][vox[i] as usize];
                 if k <= 0.0 || wt[i] == 0 {
                     continue;
                 }
-                let mut rng = stream(seed, Domain::Extravasation, ids[i], step);
-                let n = rng.binomial(wt[i], -(-k * dt).exp_m1());
+                let mut rng = streams.at(ids[i], step);
+                let n = rng.binomial_of_rate(wt[i], k * dt);
                 wt[i] -= n;
                 back[s] += n;
             }

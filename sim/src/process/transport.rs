@@ -25,9 +25,15 @@
 //!
 //! Time stepping: each packet takes as many equal sub-steps as keep its move below
 //! `max_step_voxels` of a voxel edge (the Euler scheme; uniform increments give the simplified
-//! weak Euler scheme of Kloeden and Platen 1992, section 14.1, whose moves are bounded). Faces
-//! reflect or absorb. Every packet draws from its own stream (seed, packet id, step), so the
-//! result is the same for any number of threads.
+//! weak Euler scheme of Kloeden and Platen 1992, section 14.1, whose moves are bounded): the
+//! diffusive reach `sqrt(6 D h)` at most 3/4 of it, reach plus drift at most all of it, and the
+//! change of the fluid velocity across the voxel times `h` at most a tenth of a voxel edge
+//! ([`substeps`]). Where the coefficients are uniform around the packet one sub-step covers the
+//! step (see the kernel). Faces reflect or absorb. Every packet draws from its own stream
+//! (seed, packet id, step), so the result is the same for any number of threads.
+//!
+//! The kernel reads the coefficients packed per voxel in `f32` and lattice units
+//! ([`MotionCache`]), rebuilt only when the fields or the fluid velocity change.
 
 use bevy_ecs::prelude::*;
 use rayon::prelude::*;
@@ -37,8 +43,9 @@ use crate::params::Params;
 use crate::particles::hindrance::{
     brinkman_diffusion, jackson_james, mixed_permeability, ogston_diffusion, ogston_partition,
 };
+use crate::particles::packets::{PREFETCH_AHEAD, prefetch};
 use crate::particles::{Designs, Packets};
-use crate::rng::{Domain, stream};
+use crate::rng::{Domain, Streams};
 use crate::scenario::{FaceRule, Increments, MatrixHindrance};
 use crate::tissue::{MAX_SPECIES, Matrix};
 use crate::world::{Clock, Phase, Seed};
@@ -215,6 +222,72 @@ impl MotionFields {
     }
 }
 
+/// Largest change of the fluid velocity across one voxel, times a sub-step, in voxel edges:
+/// two packets a voxel apart drift apart by at most this much per sub-step, which bounds the
+/// local error of the Euler advective step (`0.5 h^2 |u du/dx|`) to 5 % of the drift.
+const VELOCITY_CHANGE_PER_SUBSTEP: f64 = 0.1;
+
+/// The motion coefficients in the kernel's packed form: lattice units (lengths in voxel edges),
+/// `f32`, one record per voxel, so that a packet's look-up reads one or two cache lines instead
+/// of one per array. Rebuilt by [`transport_system`] whenever [`MotionFields`] or
+/// [`FaceVelocity`] change. The `f32` rounding (relative 6e-8) is far below the statistical
+/// error of any packet estimate.
+#[derive(Resource, Debug, Clone, Default)]
+pub struct MotionCache {
+    /// Per species and voxel: `[a D / h^2 (1/s), a]`.
+    coef: Vec<Vec<[f32; 2]>>,
+    /// Per voxel: fluid velocity on its six faces, voxel edges per second,
+    /// `[x-, x+, y-, y+, z-, z+]`.
+    faces: Vec<[f32; 6]>,
+    /// Per species: [`MotionFields::uniform`].
+    uniform: Vec<Vec<bool>>,
+    fc: Vec<f64>,
+    n: [usize; 3],
+}
+
+impl MotionCache {
+    /// Packs `fields` and `vel` for lattice `l`.
+    pub fn build(l: &Lattice, fields: &MotionFields, vel: &FaceVelocity) -> Self {
+        let mut c = MotionCache::default();
+        c.rebuild(l, fields, vel);
+        c
+    }
+
+    /// Packs again into the existing buffers.
+    pub fn rebuild(&mut self, l: &Lattice, fields: &MotionFields, vel: &FaceVelocity) {
+        let [nx, ny, _] = l.n;
+        let inv_h = 1.0 / l.h;
+        let inv_h2 = inv_h * inv_h;
+        let n = l.len();
+        self.n = l.n;
+        self.coef.resize_with(fields.ad.len(), Vec::new);
+        for (s, out) in self.coef.iter_mut().enumerate() {
+            out.resize(n, [0.0; 2]);
+            let (ad, a) = (&fields.ad[s], &fields.a[s]);
+            out.par_iter_mut().enumerate().for_each(|(v, c)| *c = [(ad[v] * inv_h2) as f32, a[v] as f32]);
+        }
+        self.faces.resize(n, [0.0; 6]);
+        self.faces.par_chunks_mut(nx).enumerate().for_each(|(row, out)| {
+            let (j, k) = (row % ny, row / ny);
+            for (i, f) in out.iter_mut().enumerate() {
+                let xi = i + (nx + 1) * (j + ny * k);
+                let yi = i + nx * (j + (ny + 1) * k);
+                let zi = i + nx * (j + ny * k);
+                *f = [
+                    (vel.x[xi] * inv_h) as f32,
+                    (vel.x[xi + 1] * inv_h) as f32,
+                    (vel.y[yi] * inv_h) as f32,
+                    (vel.y[yi + nx] * inv_h) as f32,
+                    (vel.z[zi] * inv_h) as f32,
+                    (vel.z[zi + nx * ny] * inv_h) as f32,
+                ];
+            }
+        });
+        self.uniform.clone_from(&fields.uniform);
+        self.fc.clone_from(&fields.fc);
+    }
+}
+
 /// The lattice in the kernel's own units (voxel edges), precomputed once per step.
 struct Grid {
     n: [usize; 3],
@@ -226,8 +299,7 @@ struct Grid {
 }
 
 impl Grid {
-    fn new(l: &Lattice) -> Self {
-        let n = l.n;
+    fn new(n: [usize; 3]) -> Self {
         Grid {
             n,
             hi: [n[0] as f64, n[1] as f64, n[2] as f64],
@@ -243,11 +315,16 @@ impl Grid {
         std::array::from_fn(|a| (u[a].max(0.0) as usize).min(self.n[a] - 1))
     }
 
-    /// Trilinear interpolation of `ad` and `a` at lattice coordinates `u`, with the gradient of
-    /// `ad` per voxel edge. Beyond the outermost voxel centres the fields are extended as
-    /// constants (zero gradient).
     #[inline]
-    fn interpolate(&self, ad: &[f64], a: &[f64], u: &[f64; 3]) -> (f64, [f64; 3], f64) {
+    fn index(&self, c: &[usize; 3]) -> usize {
+        c[0] + self.nx * c[1] + self.nxy * c[2]
+    }
+
+    /// Trilinear interpolation of `g = a D / h^2` and `a` at lattice coordinates `u`, with the
+    /// gradient of `g` per voxel edge. Beyond the outermost voxel centres the fields are
+    /// extended as constants (zero gradient).
+    #[inline]
+    fn interpolate(&self, coef: &[[f32; 2]], u: &[f64; 3]) -> (f64, [f64; 3], f64) {
         let mut base = [0usize; 3];
         let mut t = [0.0f64; 3];
         let mut slope = [1.0f64; 3];
@@ -269,8 +346,9 @@ impl Grid {
         let [sx, sy, sz] = self.corner;
         let b = base[0] + self.nx * base[1] + self.nxy * base[2];
         let idx = [b, b + sx, b + sy, b + sx + sy, b + sz, b + sx + sz, b + sy + sz, b + sx + sy + sz];
-        let g: [f64; 8] = std::array::from_fn(|c| ad[idx[c]]);
-        let av: [f64; 8] = std::array::from_fn(|c| a[idx[c]]);
+        let cv: [[f32; 2]; 8] = std::array::from_fn(|c| coef[idx[c]]);
+        let g: [f64; 8] = std::array::from_fn(|c| f64::from(cv[c][0]));
+        let av: [f64; 8] = std::array::from_fn(|c| f64::from(cv[c][1]));
         let [tx, ty, tz] = t;
         let (ux, uy, uz) = (1.0 - tx, 1.0 - ty, 1.0 - tz);
         let w = [
@@ -294,23 +372,23 @@ impl Grid {
         let dz = ux * uy * (g[4] - g[0]) + tx * uy * (g[5] - g[1]) + ux * ty * (g[6] - g[2]) + tx * ty * (g[7] - g[3]);
         (gi, [dx * slope[0], dy * slope[1], dz * slope[2]], ai)
     }
+}
 
-    /// Fluid velocity at lattice coordinates `u` in voxel `c`: linear between the voxel's faces.
-    #[inline]
-    fn velocity(&self, vel: &FaceVelocity, c: &[usize; 3], u: &[f64; 3]) -> [f64; 3] {
-        let [i, j, k] = *c;
-        let [nx, ny, _] = self.n;
-        let xi = i + (nx + 1) * (j + ny * k);
-        let yi = i + nx * (j + (ny + 1) * k);
-        let zi = i + nx * (j + ny * k);
-        let s = [u[0] - i as f64, u[1] - j as f64, u[2] - k as f64];
-        let lerp = |a: f64, b: f64, t: f64| a + (b - a) * t.clamp(0.0, 1.0);
-        [
-            lerp(vel.x[xi], vel.x[xi + 1], s[0]),
-            lerp(vel.y[yi], vel.y[yi + nx], s[1]),
-            lerp(vel.z[zi], vel.z[zi + nx * ny], s[2]),
-        ]
-    }
+/// Fluid velocity (voxel edges per second) at lattice coordinates `u` in voxel `c` of faces
+/// `f`: linear between the voxel's faces along each axis (Pollock 1988).
+#[inline]
+fn velocity(f: &[f32; 6], c: &[usize; 3], u: &[f64; 3]) -> [f64; 3] {
+    let lerp = |a: f32, b: f32, t: f64| {
+        let a = f64::from(a);
+        a + (f64::from(b) - a) * t.clamp(0.0, 1.0)
+    };
+    [lerp(f[0], f[1], u[0] - c[0] as f64), lerp(f[2], f[3], u[1] - c[1] as f64), lerp(f[4], f[5], u[2] - c[2] as f64)]
+}
+
+/// Largest change of the velocity across voxel faces `f`, per second.
+#[inline]
+fn velocity_change(f: &[f32; 6]) -> f64 {
+    f64::from((f[1] - f[0]).abs().max((f[3] - f[2]).abs()).max((f[5] - f[4]).abs()))
 }
 
 /// Whether the Ito drift term is applied (switched off only to show that it is needed).
@@ -321,8 +399,27 @@ pub enum Drift {
     Omitted,
 }
 
+/// Number of sub-steps of a step `dt` for a packet whose starting voxel has diffusion `d`
+/// (voxel edges^2 per second), drift speed `w` and velocity change `g` across the voxel (both
+/// in voxel edges per second), with largest move `lmax` (voxel edges): the smallest `n` with
+/// diffusive reach `sqrt(6 d dt / n)` at most `3/4 lmax`, reach plus drift
+/// `sqrt(6 d dt / n) + w dt / n` at most `lmax`, and `g dt / n` at most
+/// [`VELOCITY_CHANGE_PER_SUBSTEP`].
+#[inline]
+pub fn substeps(d: f64, w: f64, g: f64, dt: f64, lmax: f64) -> u64 {
+    let reach = (6.0 * d * dt).sqrt();
+    let drift = w * dt;
+    // Largest x = 1/sqrt(n) with drift x^2 + reach x <= lmax (the stable root form).
+    let x = 2.0 * lmax / (reach + (reach * reach + 4.0 * drift * lmax).sqrt());
+    let n_move = if x.is_finite() { 1.0 / (x * x) } else { 1.0 };
+    let n_diff = reach * reach / (0.5625 * lmax * lmax);
+    let n_change = g * dt / VELOCITY_CHANGE_PER_SUBSTEP;
+    n_move.max(n_diff).max(n_change).ceil().clamp(1.0, 1.0e6) as u64
+}
+
 /// Moves every packet through one step of length `dt`; returns the particles that left through
-/// absorbing faces, per species.
+/// absorbing faces, per species. Packs the coefficients first (see [`move_packets_packed`] to
+/// reuse a packing across steps).
 #[allow(clippy::too_many_arguments)]
 pub fn move_packets(
     l: &Lattice,
@@ -338,9 +435,28 @@ pub fn move_packets(
     if dt <= 0.0 || packets.is_empty() {
         return [0; MAX_SPECIES];
     }
-    let grid = Grid::new(l);
+    let cache = MotionCache::build(l, fields, vel);
+    move_packets_packed(l, &cache, p, packets, seed, step, dt, drift)
+}
+
+/// [`move_packets`] on packed coefficients.
+#[allow(clippy::too_many_arguments)]
+pub fn move_packets_packed(
+    l: &Lattice,
+    cache: &MotionCache,
+    p: &TransportParams,
+    packets: &mut Packets,
+    seed: u64,
+    step: u64,
+    dt: f64,
+    drift: Drift,
+) -> [u64; MAX_SPECIES] {
+    if dt <= 0.0 || packets.is_empty() {
+        return [0; MAX_SPECIES];
+    }
+    assert_eq!(cache.n, l.n, "motion coefficients packed for another lattice");
+    let grid = Grid::new(l.n);
     let inv_h = 1.0 / l.h;
-    let inv_h2 = inv_h * inv_h;
     // Everything below is in lattice units: lengths in voxel edges.
     let lmax = p.max_step_voxels;
     let hi = grid.hi;
@@ -348,6 +464,7 @@ pub fn move_packets(
     let absorb = p.faces == FaceRule::Absorb;
     let uniform_increments = p.increments == Increments::Uniform;
     let ito = drift == Drift::Ito;
+    let streams = Streams::new(seed, Domain::Transport);
     const CHUNK: usize = 2048;
     let Packets { id, pos, voxel, species, weight, .. } = packets;
     pos.par_chunks_mut(CHUNK)
@@ -358,42 +475,62 @@ pub fn move_packets(
         .map(|((((pos, vox), wt), ids), sp)| {
             let mut left = [0u64; MAX_SPECIES];
             for i in 0..pos.len() {
+                if let Some(&ahead) = vox.get(i + PREFETCH_AHEAD) {
+                    let (a, t) = (ahead as usize, sp[i + PREFETCH_AHEAD] as usize);
+                    prefetch(&cache.faces[a]);
+                    prefetch(&cache.coef[t][a]);
+                    if let Some(f) = cache.uniform.get(t) {
+                        prefetch(&f[a]);
+                    }
+                }
                 if wt[i] == 0 {
                     continue;
                 }
                 let s = sp[i] as usize;
-                let ad = &fields.ad[s];
-                let af = &fields.a[s];
-                let fc = fields.fc[s];
+                let coef = &cache.coef[s];
+                let fc = cache.fc[s];
                 let mut u =
                     [(pos[i][0] - origin[0]) * inv_h, (pos[i][1] - origin[1]) * inv_h, (pos[i][2] - origin[2]) * inv_h];
-                let v0 = vox[i] as usize;
-                // Sub-steps from the coefficients of the starting voxel: diffusive reach
-                // sqrt(6 D h) at most 3/4 of the largest move, drift at most 1/4 of it.
-                let d_here = if af[v0] > 0.0 { ad[v0] / af[v0] * inv_h2 } else { 0.0 };
+                // Sub-steps from the coefficients of the starting voxel.
                 let c0 = grid.cell(&u);
-                let v_here = grid.velocity(vel, &c0, &u);
-                let umax = v_here.iter().fold(0.0f64, |m, x| m.max(x.abs())) * fc.abs() * inv_h;
+                let v0 = grid.index(&c0);
+                let [g0, a0] = coef[v0];
+                let d_here = if a0 > 0.0 { (f64::from(g0) / f64::from(a0)).max(0.0) } else { 0.0 };
+                let f0 = &cache.faces[v0];
+                let w0 = velocity(f0, &c0, &u);
+                let umax = w0.iter().fold(0.0f64, |m, x| m.max(x.abs())) * fc.abs();
+                let change = velocity_change(f0) * fc.abs();
+                let mut rng = streams.at(ids[i], step);
                 // Where the coefficients are uniform within two voxels of the starting voxel and
                 // the whole step moves a packet at most 1.25 voxel edges, one sub-step is exact
-                // for the diffusion (constant coefficients) and keeps the interpolation inside
-                // the uniform neighbourhood; uniform increments are bounded (|xi| <= sqrt 3), so
-                // the bound holds for every draw. Advection keeps the fine criterion.
-                let n_adv = 4.0 * umax * dt / lmax;
+                // for the diffusion (constant coefficients: no interpolation, no Ito drift) and
+                // keeps the move inside the uniform neighbourhood; uniform increments are bounded
+                // (|xi| <= sqrt 3), so the bound holds for every draw. The drift keeps the fine
+                // criteria (at most `lmax`, and the velocity change bound).
                 let coarse = uniform_increments
-                    && n_adv <= 1.0
-                    && fields.uniform.get(s).is_some_and(|f| f[v0])
+                    && umax * dt <= lmax
+                    && change * dt <= VELOCITY_CHANGE_PER_SUBSTEP
+                    && cache.uniform.get(s).is_some_and(|f| f[v0])
                     && (6.0 * d_here * dt).sqrt() + umax * dt <= 1.25;
-                let n_diff = if coarse { 1.0 } else { 6.0 * d_here * dt / (0.5625 * lmax * lmax) };
-                let nsub = n_diff.max(n_adv).ceil().clamp(1.0, 1.0e6) as u64;
+                if coarse {
+                    let amp = (2.0 * d_here * dt).sqrt();
+                    let xi = rng.unit_variance_uniform3();
+                    for ax in 0..3 {
+                        u[ax] += fc * w0[ax] * dt + amp * xi[ax];
+                    }
+                    let c = grid.cell(&u);
+                    pos[i] = [origin[0] + u[0] * l.h, origin[1] + u[1] * l.h, origin[2] + u[2] * l.h];
+                    vox[i] = grid.index(&c) as u32;
+                    continue;
+                }
+                let nsub = substeps(d_here, umax, change, dt, lmax);
                 let h = dt / nsub as f64;
-                let mut rng = stream(seed, Domain::Transport, ids[i], step);
                 let mut gone = false;
                 for _ in 0..nsub {
-                    let (g, grad, a) = grid.interpolate(ad, af, &u);
-                    let d = if a > 0.0 { (g / a).max(0.0) * inv_h2 } else { 0.0 };
+                    let (g, grad, a) = grid.interpolate(coef, &u);
+                    let d = if a > 0.0 { (g / a).max(0.0) } else { 0.0 };
                     let cell = grid.cell(&u);
-                    let w = grid.velocity(vel, &cell, &u);
+                    let w = velocity(&cache.faces[grid.index(&cell)], &cell, &u);
                     let amp = (2.0 * d * h).sqrt();
                     let xi = if uniform_increments {
                         rng.unit_variance_uniform3()
@@ -401,9 +538,9 @@ pub fn move_packets(
                         let (a1, a2) = rng.normal_pair();
                         [a1, a2, rng.normal()]
                     };
-                    let ito_scale = if ito && a > 0.0 { inv_h2 / a } else { 0.0 };
+                    let ito_scale = if ito && a > 0.0 { 1.0 / a } else { 0.0 };
                     for ax in 0..3 {
-                        let drift_v = fc * w[ax] * inv_h + grad[ax] * ito_scale;
+                        let drift_v = fc * w[ax] + grad[ax] * ito_scale;
                         let mut x = u[ax] + drift_v * h + amp * xi[ax];
                         if x < 0.0 || x > hi[ax] {
                             if absorb {
@@ -430,8 +567,7 @@ pub fn move_packets(
                     continue;
                 }
                 pos[i] = [origin[0] + u[0] * l.h, origin[1] + u[1] * l.h, origin[2] + u[2] * l.h];
-                let c = grid.cell(&u);
-                vox[i] = (c[0] + grid.nx * c[1] + grid.nxy * c[2]) as u32;
+                vox[i] = grid.index(&grid.cell(&u)) as u32;
             }
             left
         })
@@ -455,10 +591,14 @@ pub fn transport_system(
     params: Res<TransportParams>,
     clock: Res<Clock>,
     seed: Res<Seed>,
+    mut cache: Local<MotionCache>,
     mut packets: ResMut<Packets>,
     mut ledger: ResMut<crate::process::accounting::Ledger>,
 ) {
-    let left = move_packets(&lattice, &fields, &vel, &params, &mut packets, seed.0, clock.step, clock.dt, Drift::Ito);
+    if fields.is_changed() || vel.is_changed() || cache.n != lattice.n {
+        cache.rebuild(&lattice, &fields, &vel);
+    }
+    let left = move_packets_packed(&lattice, &cache, &params, &mut packets, seed.0, clock.step, clock.dt, Drift::Ito);
     for (s, n) in left.iter().enumerate().take(ledger.species()) {
         ledger.left[s] += n;
     }
