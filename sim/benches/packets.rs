@@ -194,28 +194,32 @@ fn main() {
                 );
             }
         }
-        // BENCH_PHASES: time each process of the step once more, one by one, on this world.
+        // BENCH_PHASES: time each process of the step once more, one by one, on this world. Each
+        // runs in its own schedule, once untimed (building its local tables) and then timed.
         if std::env::var("BENCH_PHASES").is_ok() {
-            use bevy_ecs::system::RunSystemOnce;
+            use bevy_ecs::schedule::{IntoScheduleConfigs, Schedule, ScheduleLabel};
             use interstice_sim::process::{binding, exchange, transport};
+            #[derive(ScheduleLabel, Debug, Clone, PartialEq, Eq, Hash)]
+            struct Phase;
             macro_rules! phase {
                 ($name:expr, $sys:expr) => {{
-                    let t = Instant::now();
+                    let mut sched = Schedule::new(Phase);
+                    sched.add_systems($sys.into_configs());
+                    sched.run(&mut sim.world);
                     let reps = 3;
+                    let t = Instant::now();
                     for _ in 0..reps {
-                        sim.world.run_system_once($sys).expect("system runs");
+                        sched.run(&mut sim.world);
                     }
                     println!("phase_{} {:.1} ms", $name, t.elapsed().as_secs_f64() * 1e3 / reps as f64);
                 }};
             }
-            phase!("refresh_exchange", exchange::refresh_exchange);
-            phase!("exchange", exchange::exchange_system);
+            phase!("exchange", (exchange::refresh_exchange, exchange::exchange_system).chain());
             phase!("transport", transport::transport_system);
             phase!("packet_reactions", binding::packet_reactions);
             phase!("cell_kinetics", binding::cell_kinetics);
             phase!("matrix_kinetics", binding::matrix_kinetics);
             phase!("release_held", binding::release_held);
-            phase!("snapshot_when_due", interstice_sim::process::output::snapshot_when_due);
         }
         let label = format!("{:.0e}", n as f64).replace("e", "e");
         println!("packet_steps_per_s_{label} {:.3e} 1/s", (moved as f64 * steps as f64) / dt);

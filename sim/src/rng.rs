@@ -195,9 +195,9 @@ impl Stream {
         if n == 0 || x <= 0.0 {
             return 0;
         }
-        let p = -(-x).exp_m1();
-        if p > 0.5 || n as f64 * p >= 30.0 {
-            return self.binomial(n, p);
+        // p > 1/2 exactly when x > ln 2, and n p <= n x: the test needs no p.
+        if x > std::f64::consts::LN_2 || n as f64 * x >= 30.0 {
+            return self.binomial(n, -(-x).exp_m1());
         }
         let p0 = (-(n as f64) * x).exp();
         let u = self.uniform();

@@ -219,6 +219,8 @@ pub struct DueCells {
     /// Active cells already sorted into phases.
     seen: usize,
     phases: Vec<EntityIndexSet>,
+    /// Length of each phase at its last sort into entity order.
+    sorted: Vec<usize>,
 }
 
 /// Particles gathered at a voxel and ready to leave as a packet: (voxel, species, particles).
@@ -547,14 +549,32 @@ pub fn cell_kinetics(
     // The active cells due at this step: those whose voxel is in this step's phase of the
     // interval (all of them at the last step).
     if due.interval != m || occupancy.is_changed() || due.seen > active.0.len() {
-        *due = DueCells { interval: m, seen: 0, phases: vec![EntityIndexSet::default(); m as usize] };
+        *due = DueCells {
+            interval: m,
+            seen: 0,
+            phases: vec![EntityIndexSet::default(); m as usize],
+            sorted: vec![0; m as usize],
+        };
     }
     for &e in active.0.iter().skip(due.seen) {
         if let Ok((cell, ..)) = cells.get(e) {
             due.phases[(u64::from(cell.voxel) % m) as usize].insert(e);
         }
     }
+    // Visiting a phase in entity order follows the cells' storage: re-sort a phase once it has
+    // grown by an eighth since its last sort.
+    if active.0.len() > due.seen {
+        due.sorted.resize(m as usize, 0);
+        let DueCells { phases, sorted, .. } = &mut *due;
+        for (phase, done) in phases.iter_mut().zip(sorted.iter_mut()) {
+            if phase.len() > *done + *done / 8 {
+                phase.sort_unstable();
+                *done = phase.len();
+            }
+        }
+    }
     due.seen = active.0.len();
+    let streams = Streams::new(seed, Domain::Binding);
     let phase = ((m - step % m) % m) as usize;
     let list = if last_step { &active.0 } else { &due.phases[phase] };
     cells.par_iter_many_unique_mut(list).for_each(|item| {
@@ -572,7 +592,7 @@ pub fn cell_kinetics(
             return;
         }
         let v = cell.voxel as usize;
-        let mut rng = stream(seed, Domain::Binding, u64::from(cell.voxel) | (1 << 40), step);
+        let mut rng = streams.at(u64::from(cell.voxel) | (1 << 40), step);
         for s in 0..ns {
             let k = &kin.species[s];
             let val = f64::from(k.valency);
@@ -580,7 +600,7 @@ pub fn cell_kinetics(
                 let koff = k.koff_eff(rec.total, params.cell_area, params.ligand_reach);
                 let total = koff + k.kint;
                 if total > 0.0 {
-                    let n = rng.binomial(load.bound[s], 1.0 - (-total * dt).exp());
+                    let n = rng.binomial_of_rate(load.bound[s], total * dt);
                     let n_int = rng.binomial(n, k.kint / total);
                     let n_off = n - n_int;
                     load.bound[s] -= n;
@@ -594,7 +614,7 @@ pub fn cell_kinetics(
                 let vacc = motion.a[s][v] * vol;
                 if vacc > 0.0 && rec.free >= val {
                     let rate = k.kon_eff * rec.free / vacc;
-                    let n = rng.binomial(load.held[s], 1.0 - (-rate * dt).exp());
+                    let n = rng.binomial_of_rate(load.held[s], rate * dt);
                     let n = n.min((rec.free / val).floor() as u64);
                     load.held[s] -= n;
                     load.bound[s] += n;
