@@ -223,7 +223,11 @@ fn main() {
         }
         let label = format!("{:.0e}", n as f64).replace("e", "e");
         println!("packet_steps_per_s_{label} {:.3e} 1/s", (moved as f64 * steps as f64) / dt);
+        // Resident growth while the packets were created (can read low when memory freed by
+        // an earlier size is reused), and the packet table's own heap after the timed steps.
         println!("packet_memory_per_packet_{label} {:.1} B", (after - before) / n as f64);
+        let table = sim.world.resource::<Packets>();
+        println!("packet_table_bytes_per_packet_{label} {:.1} B", table.heap_bytes() as f64 / table.len() as f64);
         println!("packet_peak_rss_{label} {:.1} MB", peak_rss_bytes() / 1e6);
     }
 }

@@ -128,6 +128,21 @@ impl Packets {
         std::mem::swap(&mut self.id, &mut self.scratch_u64);
     }
 
+    /// Bytes the table holds on the heap (its columns and sort scratch, by capacity).
+    pub fn heap_bytes(&self) -> usize {
+        use std::mem::size_of;
+        self.id.capacity() * size_of::<u64>()
+            + self.pos.capacity() * size_of::<[f64; 3]>()
+            + self.voxel.capacity() * size_of::<u32>()
+            + self.species.capacity()
+            + self.weight.capacity() * size_of::<u64>()
+            + self.scratch_keys.capacity() * size_of::<(u64, u64, u32)>()
+            + self.scratch_pos.capacity() * size_of::<[f64; 3]>()
+            + self.scratch_u32.capacity() * size_of::<u32>()
+            + self.scratch_u64.capacity() * size_of::<u64>()
+            + self.scratch_u8.capacity()
+    }
+
     /// Total particles of species `s` in packets.
     pub fn particles(&self, s: usize) -> u64 {
         self.species.iter().zip(&self.weight).filter(|(sp, _)| **sp as usize == s).map(|(_, w)| *w).sum()
