@@ -204,6 +204,11 @@ impl CellSites {
 #[derive(Resource, Debug, Clone, Copy, PartialEq, Eq)]
 pub struct CellInterval(pub u64);
 
+/// Steps between updates of a voxel's desorption from the matrix, staggered over the voxels by
+/// the rule of [`CellInterval`]: at most 1 % of a voxel's adsorbed particles leave per update.
+#[derive(Resource, Debug, Clone, Copy, PartialEq, Eq)]
+pub struct DesorptionInterval(pub u64);
+
 /// Cells that hold particles or are recovering receptors: the only ones whose own kinetics need
 /// updating. A cell joins when a particle first binds to it or is taken up by it.
 #[derive(Resource, Debug, Default)]
@@ -268,21 +273,24 @@ pub struct EventBuffers {
     used: usize,
     /// Per species and voxel: particles the voxel's cell bound and took up in this settlement.
     gained: Vec<Vec<[u64; 2]>>,
-    /// Voxels whose cell gained particles in this settlement.
+    /// Voxels whose cell gained particles in this settlement, each once, in order of first gain.
     touched: Vec<u32>,
 }
 
 const CHUNK: usize = 2048;
 
-/// Draws a binomial split of `n` among rates `k` (sum `total`), in order.
+/// Draws a binomial split of `n` among rates `k` (sum `total`), in order: each channel takes a
+/// Binomial(left, k_c / rate left) share, the last channel of nonzero rate all that is left
+/// (so a lone channel takes everything without a draw).
 #[inline]
 fn split(rng: &mut Stream, mut n: u64, k: &[f64], mut total: f64, out: &mut [u64]) {
+    let last = k.iter().rposition(|&kc| kc > 0.0).unwrap_or(0);
     for (c, &kc) in k.iter().enumerate() {
-        if n == 0 || total <= 0.0 {
+        if n == 0 || total <= 0.0 || kc <= 0.0 {
             out[c] = 0;
             continue;
         }
-        let take = if c + 1 == k.len() { n } else { rng.binomial(n, (kc / total).min(1.0)) };
+        let take = if c == last { n } else { rng.binomial(n, (kc / total).min(1.0)) };
         out[c] = take;
         n -= take;
         total -= kc;
@@ -467,14 +475,18 @@ pub fn packet_reactions(
         *gained = vec![vec![[0u64; 2]; lattice.len()]; ns];
     }
     touched.clear();
+    // A voxel's first gain of this settlement (over every species) lists it once in `touched`.
+    let fresh = |gained: &[Vec<[u64; 2]>], v: usize| gained.iter().all(|g| g[v] == [0, 0]);
     for e in chunks.iter().take(*used).flatten() {
         let s = e.species as usize;
         let v = e.voxel as usize;
         match e.kind {
             EventKind::Adsorption => mload.bound[s][v] += e.count,
             EventKind::Phagocytosis => {
+                if fresh(gained, v) {
+                    touched.push(e.voxel);
+                }
                 gained[s][v][1] += e.count;
-                touched.push(e.voxel);
             }
             EventKind::Bind => {
                 let val = kin.species[s].valency as f64;
@@ -482,10 +494,12 @@ pub fn packet_reactions(
                 let room = (free / val).floor().max(0.0) as u64;
                 let accepted = e.count.min(room);
                 if accepted > 0 {
+                    if fresh(gained, v) {
+                        touched.push(e.voxel);
+                    }
                     gained[s][v][0] += accepted;
                     sites.set_free(v, free - accepted as f64 * val);
                     packets.weight[e.index as usize] -= accepted;
-                    touched.push(e.voxel);
                 }
             }
         }
@@ -636,10 +650,15 @@ pub fn cell_kinetics(
     });
 }
 
-/// Desorption from the matrix, voxel by voxel.
+/// Desorption from the matrix, voxel by voxel: voxel `v` updates at the steps with
+/// `(step + v) % interval == 0` ([`DesorptionInterval`]), over the `interval` steps since its
+/// last update, by the exact probability `1 - exp(-k_des interval dt)` per particle (at the
+/// last step every voxel catches up on the steps since its last update).
+#[allow(clippy::too_many_arguments)] // a system's parameters are the resources it reads
 pub fn matrix_kinetics(
     params: Res<BindingParams>,
     kin: Res<Kinetics>,
+    interval: Res<DesorptionInterval>,
     clock: Res<Clock>,
     seed: Res<Seed>,
     releases: Res<Releases>,
@@ -648,17 +667,27 @@ pub fn matrix_kinetics(
     if params.desorption <= 0.0 {
         return;
     }
-    let p = 1.0 - (-params.desorption * clock.dt).exp();
-    let (step, seed) = (clock.step, seed.0);
+    let m = interval.0.max(1);
+    let step = clock.step;
+    let last_step = clock.time + clock.dt >= clock.end * (1.0 - 1e-12);
+    let x = params.desorption * clock.dt;
+    let streams = Streams::new(seed.0, Domain::Binding);
+    const CHUNK: usize = 4096;
     let MatrixLoad { bound, held } = &mut *mload;
     for (s, (b, h)) in bound.iter_mut().zip(held.iter_mut()).enumerate() {
         let w = kin.species[s].packet;
-        b.par_chunks_mut(4096).zip(h.par_chunks_mut(4096)).enumerate().for_each(|(c, (b, h))| {
-            for i in 0..b.len() {
+        b.par_chunks_mut(CHUNK).zip(h.par_chunks_mut(CHUNK)).enumerate().for_each(|(c, (b, h))| {
+            let base = (c * CHUNK) as u64;
+            // The first voxel of the chunk due now, then every m-th (all of them at the last step).
+            let (first, stride) = if last_step { (0, 1) } else { (((m - (step + base) % m) % m) as usize, m as usize) };
+            for i in (first..b.len()).step_by(stride) {
                 if b[i] > 0 {
-                    let v = (c * 4096 + i) as u64;
-                    let mut rng = stream(seed, Domain::Binding, v | ((s as u64 + 2) << 40), step);
-                    let n = rng.binomial(b[i], p);
+                    let v = base + i as u64;
+                    // Steps since the voxel's last update (m when it is due now).
+                    let r = (step + v) % m;
+                    let steps = if r == 0 { m } else { r };
+                    let mut rng = streams.at(v | ((s as u64 + 2) << 40), step);
+                    let n = rng.binomial_of_rate(b[i], x * steps as f64);
                     b[i] -= n;
                     h[i] += n;
                     if h[i] >= w {
@@ -707,13 +736,20 @@ fn fastest_cell_rate(kin: &Kinetics, p: &BindingParams) -> f64 {
     kin.species.iter().map(|k| k.koff_single + k.kint).fold(p.receptor_recycling, f64::max)
 }
 
+/// Steps between updates of a first-order process of rate `k` (1/s) such that an update moves at
+/// most 1 % of what it acts on (1 to 1000 steps).
+fn update_interval(k: f64, time_step: f64) -> u64 {
+    if k > 0.0 { ((0.01 / (k * time_step)).floor() as u64).clamp(1, 1000) } else { 1000 }
+}
+
 /// Puts the kinetics of `designs` under `binding` in force: rate constants and the interval
 /// between cell updates (each cell's update integrates exactly over the time since its last).
 pub fn set_kinetics(world: &mut World, designs: &Designs, binding: &BindingParams, time_step: f64) {
     let kin = Kinetics::build(designs, binding);
     let k = fastest_cell_rate(&kin, binding);
-    let interval = if k > 0.0 { ((0.01 / (k * time_step)).floor() as u64).clamp(1, 1000) } else { 1000 };
+    let interval = update_interval(k, time_step);
     world.insert_resource(CellInterval(interval));
+    world.insert_resource(DesorptionInterval(update_interval(binding.desorption, time_step)));
     world.insert_resource(kin);
     world.insert_resource(binding.clone());
 }
