@@ -1,4 +1,4 @@
-//! Free particle packets: a contiguous table (structure of arrays), kept in Morton order.
+//! Free particle packets: a contiguous table (structure of arrays), kept in voxel order.
 //!
 //! A packet carries a known whole number of particles of one species at a continuous position.
 //! Only free (mobile) particles travel as packets: particles bound to a cell or internalised
@@ -11,7 +11,7 @@
 use bevy_ecs::prelude::Resource;
 use rayon::prelude::*;
 
-use crate::lattice::{Lattice, morton};
+use crate::lattice::Lattice;
 
 /// How many packets ahead the kernels that gather per-voxel data for each packet ask for that
 /// data ([`prefetch`]): packets are in voxel order but their voxels' records lie far apart in
@@ -103,14 +103,17 @@ impl Packets {
         self.weight.truncate(w);
     }
 
-    /// Sorts the packets by the Morton code of their voxel, then by id: a total order, so the
-    /// result does not depend on the sort's parallelism. Scratch space is kept between calls.
-    pub fn sort_morton(&mut self, lattice: &Lattice) {
+    /// Sorts the packets by the linear index of their voxel (x fastest, as every per-voxel table
+    /// is laid out), then by id: a total order, so the result does not depend on the sort's
+    /// parallelism. A pass over the packets then reads each per-voxel table as a few forward
+    /// sweeps (the rows of the voxel and of its neighbours), which the processor's prefetcher
+    /// follows; a Morton order, local in space, jumps between distant rows of those tables and
+    /// measured 5-8 % slower over the whole step. Scratch space is kept between calls.
+    pub fn sort_by_voxel(&mut self) {
         let n = self.len();
         self.scratch_keys.clear();
-        self.scratch_keys.extend((0..n).map(|i| (0u64, self.id[i], i as u32)));
-        let voxel = &self.voxel;
-        self.scratch_keys.par_iter_mut().for_each(|k| k.0 = morton(lattice.ijk(voxel[k.2 as usize] as usize)));
+        let (voxel, id) = (&self.voxel, &self.id);
+        self.scratch_keys.extend((0..n).map(|i| (u64::from(voxel[i]), id[i], i as u32)));
         self.scratch_keys.par_sort_unstable();
         macro_rules! permute {
             ($field:ident, $scratch:ident) => {{
@@ -174,9 +177,8 @@ mod tests {
         p.compact();
         assert!(p.weight.iter().all(|&w| w > 0));
         assert_eq!(p.weight.iter().sum::<u64>(), total);
-        p.sort_morton(&l);
-        let codes: Vec<u64> = p.voxel.iter().map(|&v| morton(l.ijk(v as usize))).collect();
-        assert!(codes.windows(2).all(|w| w[0] <= w[1]));
+        p.sort_by_voxel();
+        assert!(p.voxel.windows(2).all(|w| w[0] <= w[1]));
         // Every packet kept its own position and voxel.
         for i in 0..p.len() {
             let v = l.voxel_of(p.pos[i]).unwrap();

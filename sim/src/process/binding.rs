@@ -275,6 +275,9 @@ pub struct EventBuffers {
     gained: Vec<Vec<[u64; 2]>>,
     /// Voxels whose cell gained particles in this settlement, each once, in order of first gain.
     touched: Vec<u32>,
+    /// The same voxels as a bit set (bit `v % 64` of word `v / 64`): small enough to stay in
+    /// cache while the hand-over pass scans every cell.
+    touched_bits: Vec<u64>,
 }
 
 const CHUNK: usize = 2048;
@@ -469,34 +472,39 @@ pub fn packet_reactions(
     // its cell's free receptors ([`CellSites`]) is the account binding draws on; what each cell
     // gained is gathered per voxel and handed to the cells afterwards in one parallel pass in
     // their own storage order (reading a cell's components per event would wait on memory).
-    let EventBuffers { chunks, used, gained, touched } = &mut *bufs;
+    let EventBuffers { chunks, used, gained, touched, touched_bits } = &mut *bufs;
     let ns = kin.species.len();
     if gained.len() != ns || gained.first().is_some_and(|g| g.len() != lattice.len()) {
         *gained = vec![vec![[0u64; 2]; lattice.len()]; ns];
     }
+    touched_bits.resize(lattice.len().div_ceil(64), 0);
     touched.clear();
     // A voxel's first gain of this settlement (over every species) lists it once in `touched`.
-    let fresh = |gained: &[Vec<[u64; 2]>], v: usize| gained.iter().all(|g| g[v] == [0, 0]);
+    let mut touch = |v: u32| {
+        let (word, bit) = ((v / 64) as usize, 1u64 << (v % 64));
+        if touched_bits[word] & bit == 0 {
+            touched_bits[word] |= bit;
+            touched.push(v);
+        }
+    };
     for e in chunks.iter().take(*used).flatten() {
         let s = e.species as usize;
         let v = e.voxel as usize;
         match e.kind {
             EventKind::Adsorption => mload.bound[s][v] += e.count,
             EventKind::Phagocytosis => {
-                if fresh(gained, v) {
-                    touched.push(e.voxel);
-                }
+                touch(e.voxel);
                 gained[s][v][1] += e.count;
             }
             EventKind::Bind => {
                 let val = kin.species[s].valency as f64;
                 let free = sites.free(v);
-                let room = (free / val).floor().max(0.0) as u64;
+                // Whole particles the free receptors can take (truncation is the floor here:
+                // the quotient is never negative once clamped).
+                let room = (free / val).max(0.0) as u64;
                 let accepted = e.count.min(room);
                 if accepted > 0 {
-                    if fresh(gained, v) {
-                        touched.push(e.voxel);
-                    }
+                    touch(e.voxel);
                     gained[s][v][0] += accepted;
                     sites.set_free(v, free - accepted as f64 * val);
                     packets.weight[e.index as usize] -= accepted;
@@ -510,9 +518,10 @@ pub fn packet_reactions(
     let newly = Mutex::new(Vec::new());
     let gained_ref = &*gained;
     let sites_ref = &*sites;
+    let bits_ref = &*touched_bits;
     cells.par_iter_mut().for_each(|(entity, cell, mut rec, mut load)| {
         let v = cell.voxel as usize;
-        if gained_ref.iter().all(|g| g[v] == [0, 0]) {
+        if bits_ref[v / 64] & (1u64 << (v % 64)) == 0 {
             return;
         }
         if load.bound.iter().chain(&load.internalised).all(|&x| x == 0) {
@@ -534,6 +543,7 @@ pub fn packet_reactions(
         for g in gained.iter_mut() {
             g[v as usize] = [0, 0];
         }
+        touched_bits[(v / 64) as usize] = 0;
     }
 }
 

@@ -604,7 +604,7 @@ pub fn transport_system(
     }
     packets.compact();
     if clock.step.is_multiple_of(params.sort_interval_steps) {
-        packets.sort_morton(&lattice);
+        packets.sort_by_voxel();
     }
 }
 

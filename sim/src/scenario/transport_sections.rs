@@ -56,7 +56,7 @@ section! {
         increments: Increments = Increments::Uniform;
         /// Rule at the lattice faces: "reflect" or "absorb".
         faces: FaceRule = FaceRule::Reflect;
-        /// Steps between re-sorts of the packets in Morton order of their voxels.
+        /// Steps between re-sorts of the packets by their voxel.
         sort_interval_steps: u32 = 16, Check::count(1.0, 1.0e6);
     }
 }
