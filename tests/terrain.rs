@@ -63,4 +63,7 @@ fn growth_is_identical_for_one_and_two_threads() {
     let kind: Vec<u8> = f.dataset("growth/000002/cell_kind").unwrap().read_raw().unwrap();
     let snap: Vec<u8> = f.dataset("snapshots/000000/fields/cell_kind").unwrap().read_raw().unwrap();
     assert_eq!(kind, snap, "delivery starts from the grown tumour");
+    // The growth sidecar, read by meshio (an outside XDMF reader), lists the same frames and data.
+    let text = python("check_growth_xdmf.py", &[fa.to_str().unwrap()]);
+    assert!(text.contains("all checks passed"), "{text}");
 }

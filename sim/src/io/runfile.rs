@@ -223,6 +223,37 @@ impl RunWriter {
         &self.file
     }
 
+    /// Writes the growth frames' XDMF sidecar ([`XdmfWriter::growth`]) from the run file's
+    /// `/growth` group; nothing when the run did not grow.
+    pub fn index_growth(&self) -> SimResult<()> {
+        if !self.file.link_exists("growth") {
+            return Ok(());
+        }
+        let mut x = XdmfWriter::growth(&self.path, &self.lattice, self.xdmf.explicit());
+        (|| -> hdf5::Result<()> {
+            let root = self.file.group("growth")?;
+            let mut names = root.member_names()?;
+            names.retain(|n| n != "series");
+            names.sort();
+            for name in names {
+                let g = root.group(&name)?;
+                let t: f64 = g.attr("time_s")?.read_scalar()?;
+                let mut fields = Vec::new();
+                let mut fnames = g.member_names()?;
+                fnames.sort();
+                for f in fnames {
+                    let ds = g.dataset(&f)?;
+                    let (number_type, precision) = if ds.dtype()?.size() == 1 { ("UChar", 1) } else { ("Float", 8) };
+                    fields.push(XdmfField { h5path: format!("/growth/{name}/{f}"), name: f, number_type, precision });
+                }
+                x.push_snapshot(t, fields);
+            }
+            Ok(())
+        })()
+        .map_err(SimError::hdf5(&self.path, "cannot index the growth frames"))?;
+        x.write()
+    }
+
     /// Number of snapshots written completely.
     pub fn finished_snapshots(&self) -> u64 {
         self.finished

@@ -4,6 +4,8 @@
 //! Two topologies: explicit hexahedra (points and connectivity stored under `/mesh` in the run
 //! file; understood by every XDMF reader) or the compact regular grid `3DCoRectMesh`
 //! (origin and spacing only). The sidecar is rewritten atomically after each finished snapshot.
+//! A run that grew its tumour before dosing has a second sidecar, `<run>.growth.xmf`, over the
+//! frames of its `/growth` group.
 
 use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
@@ -20,23 +22,46 @@ pub struct XdmfField {
     pub precision: usize,
 }
 
-/// Keeps the list of finished snapshots and rewrites the sidecar.
+/// Keeps the list of finished frames (snapshots, or growth frames) and rewrites the sidecar.
 pub struct XdmfWriter {
     path: PathBuf,
     h5name: String,
     lattice: Lattice,
     explicit: bool,
+    /// Name of the temporal collection and prefix of its frames.
+    collection: &'static str,
+    frame: &'static str,
     steps: Vec<(f64, Vec<XdmfField>)>,
 }
 
 impl XdmfWriter {
-    /// A sidecar beside `h5_path`, with the same stem and the extension `.xmf`.
+    /// The snapshots' sidecar beside `h5_path`, with the same stem and the extension `.xmf`.
     pub fn new(h5_path: &Path, lattice: &Lattice, explicit: bool) -> Self {
+        Self::with(h5_path.with_extension("xmf"), h5_path, lattice, explicit, "snapshots", "snapshot")
+    }
+
+    /// The growth frames' sidecar (`<run>.growth.xmf`): the frames of the run file's `/growth`
+    /// group, times before dosing negative. A separate file, so that each sidecar is one time
+    /// series (readers open the last temporal collection of a file).
+    pub fn growth(h5_path: &Path, lattice: &Lattice, explicit: bool) -> Self {
+        Self::with(h5_path.with_extension("growth.xmf"), h5_path, lattice, explicit, "growth", "growth")
+    }
+
+    fn with(
+        path: PathBuf,
+        h5_path: &Path,
+        lattice: &Lattice,
+        explicit: bool,
+        collection: &'static str,
+        frame: &'static str,
+    ) -> Self {
         XdmfWriter {
-            path: h5_path.with_extension("xmf"),
+            path,
             h5name: h5_path.file_name().map(|s| s.to_string_lossy().into_owned()).unwrap_or_default(),
             lattice: lattice.clone(),
             explicit,
+            collection,
+            frame,
             steps: Vec::new(),
         }
     }
@@ -46,7 +71,12 @@ impl XdmfWriter {
         &self.path
     }
 
-    /// Adds a finished snapshot.
+    /// Whether the sidecar uses the explicit hexahedral mesh.
+    pub fn explicit(&self) -> bool {
+        self.explicit
+    }
+
+    /// Adds a finished snapshot (or growth frame).
     pub fn push_snapshot(&mut self, time_s: f64, mut fields: Vec<XdmfField>) {
         // Alphabetical order: the same sidecar whether a run was written in one go or resumed.
         fields.sort_by(|a, b| a.name.cmp(&b.name));
@@ -89,9 +119,9 @@ impl XdmfWriter {
             );
         }
         s.push_str("</Grid>\n");
-        s.push_str("<Grid Name=\"snapshots\" GridType=\"Collection\" CollectionType=\"Temporal\">\n");
+        let _ = writeln!(s, "<Grid Name=\"{}\" GridType=\"Collection\" CollectionType=\"Temporal\">", self.collection);
         for (i, (t, fields)) in self.steps.iter().enumerate() {
-            let _ = writeln!(s, "<Grid Name=\"snapshot_{i:06}\" GridType=\"Uniform\">");
+            let _ = writeln!(s, "<Grid Name=\"{}_{i:06}\" GridType=\"Uniform\">", self.frame);
             s.push_str("<xi:include xpointer=\"xpointer(//Grid[@Name=&quot;lattice&quot;]/*[self::Topology or self::Geometry])\"/>\n");
             let _ = writeln!(s, "<Time Value=\"{t:e}\"/>");
             for f in fields {

@@ -196,6 +196,7 @@ pub fn open_run_file(
         explicit,
     )?;
     crate::terrain::growth::write_history(&sim.world, writer.file(), &lattice, sim.params.output.compression_level)?;
+    writer.index_growth()?;
     sim.world.resource_mut::<OutputFile>().0 = Some(writer);
     Ok(path)
 }
