@@ -60,6 +60,7 @@ fn main() {
     let mut sim = Simulation::new(&loaded).expect("world");
     let l = sim.lattice().clone();
     sim.step().expect("first step");
+    let mut first = true;
     for &n in &sizes {
         let before = current_rss_bytes();
         {
@@ -226,9 +227,13 @@ fn main() {
         }
         let label = format!("{:.0e}", n as f64).replace("e", "e");
         println!("packet_steps_per_s_{label} {:.3e} 1/s", packet_steps as f64 / dt);
-        // Resident growth while the packets were created (can read low when memory freed by
-        // an earlier size is reused), and the packet table's own heap after the timed steps.
-        println!("packet_memory_per_packet_{label} {:.1} B", (after - before) / n as f64);
+        // Resident growth while the packets were created, for the first size only (a later size
+        // reuses memory an earlier one freed, and reads low or negative), and the packet
+        // table's own heap after the timed steps, for every size.
+        if first {
+            println!("packet_memory_per_packet_{label} {:.1} B", (after - before) / n as f64);
+        }
+        first = false;
         let table = sim.world.resource::<Packets>();
         println!("packet_table_bytes_per_packet_{label} {:.1} B", table.heap_bytes() as f64 / table.len() as f64);
         println!("packet_peak_rss_{label} {:.1} MB", peak_rss_bytes() / 1e6);
