@@ -60,8 +60,7 @@ fn main() {
     let mut sim = Simulation::new(&loaded).expect("world");
     let l = sim.lattice().clone();
     sim.step().expect("first step");
-    let mut first = true;
-    for &n in &sizes {
+    for (k, &n) in sizes.iter().enumerate() {
         let before = current_rss_bytes();
         {
             let mut r = interstice_sim::rng::stream(1, interstice_sim::rng::Domain::Tissue, 77, n as u64);
@@ -230,10 +229,9 @@ fn main() {
         // Resident growth while the packets were created, for the first size only (a later size
         // reuses memory an earlier one freed, and reads low or negative), and the packet
         // table's own heap after the timed steps, for every size.
-        if first {
+        if k == 0 {
             println!("packet_memory_per_packet_{label} {:.1} B", (after - before) / n as f64);
         }
-        first = false;
         let table = sim.world.resource::<Packets>();
         println!("packet_table_bytes_per_packet_{label} {:.1} B", table.heap_bytes() as f64 / table.len() as f64);
         println!("packet_peak_rss_{label} {:.1} MB", peak_rss_bytes() / 1e6);

@@ -66,6 +66,11 @@ impl Clock {
     pub fn done(&self) -> bool {
         self.time >= self.end * (1.0 - 1e-12)
     }
+
+    /// Whether the step being taken ends the run (same tolerance as [`Clock::done`]).
+    pub fn is_last_step(&self) -> bool {
+        self.time + self.dt >= self.end * (1.0 - 1e-12)
+    }
 }
 
 /// Times (s) at which a step must end besides snapshots: doses, the start and end of

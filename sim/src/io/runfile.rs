@@ -168,24 +168,10 @@ impl RunWriter {
                 }
                 let g = snaps.group(name)?;
                 let t: f64 = g.attr("time_s")?.read_scalar()?;
-                let mut fields = Vec::new();
-                if let Ok(fg) = g.group("fields") {
-                    let mut fnames = fg.member_names()?;
-                    // Keep the order the fields were written in (creation order is not
-                    // tracked; the writer's order is alphabetical within each part).
-                    fnames.sort();
-                    for f in fnames {
-                        let ds = fg.dataset(&f)?;
-                        let (number_type, precision) =
-                            if ds.dtype()?.size() == 1 { ("UChar", 1) } else { ("Float", 8) };
-                        fields.push(XdmfField {
-                            h5path: format!("/snapshots/{name}/fields/{f}"),
-                            name: f,
-                            number_type,
-                            precision,
-                        });
-                    }
-                }
+                let fields = match g.group("fields") {
+                    Ok(fg) => xdmf_fields(&fg, &format!("/snapshots/{name}/fields"))?,
+                    Err(_) => Vec::new(),
+                };
                 xdmf.push_snapshot(t, fields);
             }
             let series = file.group("series")?;
@@ -238,15 +224,7 @@ impl RunWriter {
             for name in names {
                 let g = root.group(&name)?;
                 let t: f64 = g.attr("time_s")?.read_scalar()?;
-                let mut fields = Vec::new();
-                let mut fnames = g.member_names()?;
-                fnames.sort();
-                for f in fnames {
-                    let ds = g.dataset(&f)?;
-                    let (number_type, precision) = if ds.dtype()?.size() == 1 { ("UChar", 1) } else { ("Float", 8) };
-                    fields.push(XdmfField { h5path: format!("/growth/{name}/{f}"), name: f, number_type, precision });
-                }
-                x.push_snapshot(t, fields);
+                x.push_snapshot(t, xdmf_fields(&g, &format!("/growth/{name}"))?);
             }
             Ok(())
         })()
@@ -498,4 +476,20 @@ impl SnapshotWriter<'_> {
         self.run.xdmf.write()?;
         Ok(())
     }
+}
+
+/// The datasets of `group` (at `h5path` in the file) as sidecar fields, in name order (creation
+/// order is not tracked; the writer's order is alphabetical within each part): one-byte
+/// datasets as unsigned chars, the others as 8-byte floats.
+fn xdmf_fields(group: &hdf5::Group, h5path: &str) -> hdf5::Result<Vec<XdmfField>> {
+    let mut names = group.member_names()?;
+    names.sort();
+    names
+        .into_iter()
+        .map(|f| {
+            let size = group.dataset(&f)?.dtype()?.size();
+            let (number_type, precision) = if size == 1 { ("UChar", 1) } else { ("Float", 8) };
+            Ok(XdmfField { h5path: format!("{h5path}/{f}"), name: f, number_type, precision })
+        })
+        .collect()
 }

@@ -499,9 +499,7 @@ pub fn packet_reactions(
             EventKind::Bind => {
                 let val = kin.species[s].valency as f64;
                 let free = sites.free(v);
-                // Whole particles the free receptors can take (truncation is the floor here:
-                // the quotient is never negative once clamped).
-                let room = (free / val).max(0.0) as u64;
+                let room = (free / val).floor().max(0.0) as u64;
                 let accepted = e.count.min(room);
                 if accepted > 0 {
                     touch(e.voxel);
@@ -568,7 +566,7 @@ pub fn cell_kinetics(
     let now = clock.time + clock.dt;
     let vol = lattice.voxel_volume();
     let (step, seed, m) = (clock.step, seed.0, interval.0);
-    let last_step = now >= clock.end * (1.0 - 1e-12);
+    let last_step = clock.is_last_step();
     let ns = kin.species.len();
     // The active cells due at this step: those whose voxel is in this step's phase of the
     // interval (all of them at the last step).
@@ -664,7 +662,6 @@ pub fn cell_kinetics(
 /// `(step + v) % interval == 0` ([`DesorptionInterval`]), over the `interval` steps since its
 /// last update, by the exact probability `1 - exp(-k_des interval dt)` per particle (at the
 /// last step every voxel catches up on the steps since its last update).
-#[allow(clippy::too_many_arguments)] // a system's parameters are the resources it reads
 pub fn matrix_kinetics(
     params: Res<BindingParams>,
     kin: Res<Kinetics>,
@@ -679,7 +676,7 @@ pub fn matrix_kinetics(
     }
     let m = interval.0.max(1);
     let step = clock.step;
-    let last_step = clock.time + clock.dt >= clock.end * (1.0 - 1e-12);
+    let last_step = clock.is_last_step();
     let x = params.desorption * clock.dt;
     let streams = Streams::new(seed.0, Domain::Binding);
     const CHUNK: usize = 4096;
