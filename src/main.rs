@@ -216,6 +216,7 @@ fn run(cli: Cli) -> Result<(), Box<dyn std::error::Error>> {
                     summary.steps,
                     summary.wall_time_s
                 );
+                eprintln!("interstice: time by process: {}", summary.phase_times.summary());
             }
         }
         Command::Check { scenario, resolved, overrides } => {

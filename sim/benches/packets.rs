@@ -7,6 +7,7 @@ use std::time::Instant;
 
 use interstice_sim::particles::Packets;
 use interstice_sim::process::accounting::Ledger;
+use interstice_sim::world::PhaseTimes;
 use interstice_sim::{LoadedScenario, Simulation};
 
 fn peak_rss_bytes() -> f64 {
@@ -87,12 +88,20 @@ fn main() {
         // Packet-steps: the packets at the start of each step (the count grows as desorbed and
         // released particles leave as new packets).
         let mut packet_steps = 0usize;
+        sim.world.insert_resource(PhaseTimes::default());
         let t0 = Instant::now();
         for _ in 0..steps {
             packet_steps += sim.world.resource::<Packets>().len();
             sim.step().expect("step");
         }
         let dt = t0.elapsed().as_secs_f64();
+        // Where the timed steps went, per process set, ms per step.
+        let label = format!("{:.0e}", n as f64);
+        for (phase, s) in sim.world.resource::<PhaseTimes>().by_phase() {
+            if s > 0.0 {
+                println!("step_{}_{label} {:.2} ms", phase.name(), s * 1e3 / steps as f64);
+            }
+        }
         // The motion kernel alone, on the same packets and fields (BENCH_WHOLE_ONLY skips it).
         if std::env::var("BENCH_WHOLE_ONLY").is_err() {
             use interstice_sim::process::transport::{
@@ -197,35 +206,8 @@ fn main() {
                 );
             }
         }
-        // BENCH_PHASES: time each process of the step once more, one by one, on this world. Each
-        // runs in its own schedule, once untimed (building its local tables) and then timed.
-        if std::env::var("BENCH_PHASES").is_ok() {
-            use bevy_ecs::schedule::{IntoScheduleConfigs, Schedule, ScheduleLabel};
-            use interstice_sim::process::{binding, exchange, transport};
-            #[derive(ScheduleLabel, Debug, Clone, PartialEq, Eq, Hash)]
-            struct Phase;
-            macro_rules! phase {
-                ($name:expr, $sys:expr) => {{
-                    let mut sched = Schedule::new(Phase);
-                    sched.add_systems($sys.into_configs());
-                    sched.run(&mut sim.world);
-                    let reps = 3;
-                    let t = Instant::now();
-                    for _ in 0..reps {
-                        sched.run(&mut sim.world);
-                    }
-                    println!("phase_{} {:.1} ms", $name, t.elapsed().as_secs_f64() * 1e3 / reps as f64);
-                }};
-            }
-            phase!("exchange", (exchange::refresh_exchange, exchange::exchange_system).chain());
-            phase!("transport", transport::transport_system);
-            phase!("packet_reactions", binding::packet_reactions);
-            phase!("cell_kinetics", binding::cell_kinetics);
-            phase!("matrix_kinetics", binding::matrix_kinetics);
-            phase!("release_held", binding::release_held);
-        }
-        let label = format!("{:.0e}", n as f64).replace("e", "e");
         println!("packet_steps_per_s_{label} {:.3e} 1/s", packet_steps as f64 / dt);
+        println!("packets_mean_per_step_{label} {:.3e} 1", packet_steps as f64 / steps as f64);
         // Resident growth while the packets were created, for the first size only (a later size
         // reuses memory an earlier one freed, and reads low or negative), and the packet
         // table's own heap after the timed steps, for every size.

@@ -40,6 +40,78 @@ pub enum Phase {
     Output,
 }
 
+impl Phase {
+    /// Every set, in the order they run.
+    pub const ALL: [Phase; 8] = [
+        Phase::Blood,
+        Phase::Pressure,
+        Phase::Exchange,
+        Phase::Transport,
+        Phase::Binding,
+        Phase::Interventions,
+        Phase::Advance,
+        Phase::Output,
+    ];
+
+    /// The set's name in reports.
+    pub fn name(self) -> &'static str {
+        match self {
+            Phase::Blood => "blood",
+            Phase::Pressure => "pressure",
+            Phase::Exchange => "exchange",
+            Phase::Transport => "transport",
+            Phase::Binding => "binding",
+            Phase::Interventions => "interventions",
+            Phase::Advance => "advance",
+            Phase::Output => "output",
+        }
+    }
+}
+
+/// Wall-clock time spent in each process set since the world was built, s, indexed as
+/// [`Phase::ALL`]: a lap is taken after every set (timing never changes results).
+#[derive(Resource, Debug, Clone)]
+pub struct PhaseTimes {
+    pub seconds: [f64; 8],
+    mark: Instant,
+}
+
+impl Default for PhaseTimes {
+    fn default() -> Self {
+        PhaseTimes { seconds: [0.0; 8], mark: Instant::now() }
+    }
+}
+
+impl PhaseTimes {
+    /// Starts the laps of a step.
+    fn start(&mut self) {
+        self.mark = Instant::now();
+    }
+
+    /// Books the time since the last mark to set `k`.
+    fn lap(&mut self, k: usize) {
+        let now = Instant::now();
+        self.seconds[k] += (now - self.mark).as_secs_f64();
+        self.mark = now;
+    }
+
+    /// Sets and their seconds, in schedule order.
+    pub fn by_phase(&self) -> impl Iterator<Item = (Phase, f64)> + '_ {
+        Phase::ALL.iter().copied().zip(self.seconds.iter().copied())
+    }
+
+    /// One line for a report: each set's seconds and share of the total, sets that took under
+    /// a millisecond left out.
+    pub fn summary(&self) -> String {
+        let total: f64 = self.seconds.iter().sum();
+        self.by_phase()
+            .filter(|&(_, s)| s >= 1e-3)
+            .map(|(p, s)| format!("{} {:.2} s ({:.0} %)", p.name(), s, 100.0 * s / total.max(1e-300)))
+            .collect::<Vec<_>>()
+            .join(", ")
+    }
+}
+
 /// Label of the step schedule.
 #[derive(ScheduleLabel, Debug, Clone, PartialEq, Eq, Hash)]
 pub struct Step;
@@ -145,6 +217,8 @@ pub struct RunSummary {
     pub steps: u64,
     pub snapshots: u64,
     pub wall_time_s: f64,
+    /// Time spent in each process set over the steps of this invocation.
+    pub phase_times: PhaseTimes,
 }
 
 /// A run: its world and its step schedule.
@@ -182,21 +256,21 @@ impl Simulation {
         let mut schedule = Schedule::new(Step);
         // Processes run one after another in the order of the physics; each parallelises inside.
         schedule.set_executor(bevy_ecs::schedule::SingleThreadedExecutor::new());
-        schedule.configure_sets(
-            (
-                Phase::Blood,
-                Phase::Pressure,
-                Phase::Exchange,
-                Phase::Transport,
-                Phase::Binding,
-                Phase::Interventions,
-                Phase::Advance,
-                Phase::Output,
-            )
-                .chain(),
-        );
+        for pair in Phase::ALL.windows(2) {
+            schedule.configure_sets(pair[0].before(pair[1]));
+        }
         process::install(&mut world, &mut schedule, &params)?;
         schedule.add_systems(advance_clock.in_set(Phase::Advance));
+        // A lap of the process timer before the first set and after each one.
+        world.insert_resource(PhaseTimes::default());
+        schedule.add_systems((|mut t: ResMut<PhaseTimes>| t.start()).before(Phase::Blood));
+        for (k, &set) in Phase::ALL.iter().enumerate() {
+            let lap = (move |mut t: ResMut<PhaseTimes>| t.lap(k)).after(set);
+            match Phase::ALL.get(k + 1) {
+                Some(&next) => schedule.add_systems(lap.before(next)),
+                None => schedule.add_systems(lap),
+            };
+        }
         Ok(Simulation { world, schedule, params })
     }
 
@@ -274,7 +348,8 @@ impl Simulation {
         if ckpt.exists() {
             std::fs::remove_file(&ckpt).map_err(crate::error::SimError::io(&ckpt, "cannot remove the checkpoint"))?;
         }
-        Ok(RunSummary { file, steps, snapshots, wall_time_s: wall })
+        let phase_times = self.world.resource::<PhaseTimes>().clone();
+        Ok(RunSummary { file, steps, snapshots, wall_time_s: wall, phase_times })
     }
 }
 

@@ -248,7 +248,6 @@ pub struct MatrixLoad {
 #[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord)]
 struct Event {
     voxel: u32,
-    id: u64,
     index: u32,
     species: u8,
     kind: EventKind,
@@ -408,8 +407,7 @@ fn react_packets(
                 wt[i] = w - np - na - nd;
                 drained[s] += nd;
                 let index = (c * CHUNK + i) as u32;
-                let base =
-                    Event { voxel: v as u32, id: ids[i], index, species: s as u8, kind: EventKind::Bind, count: 0 };
+                let base = Event { voxel: v as u32, index, species: s as u8, kind: EventKind::Bind, count: 0 };
                 if nb > 0 {
                     ev.push(Event { count: nb, ..base });
                 }
@@ -487,25 +485,41 @@ pub fn packet_reactions(
             touched.push(v);
         }
     };
-    for e in chunks.iter().take(*used).flatten() {
-        let s = e.species as usize;
-        let v = e.voxel as usize;
-        match e.kind {
-            EventKind::Adsorption => mload.bound[s][v] += e.count,
-            EventKind::Phagocytosis => {
-                touch(e.voxel);
-                gained[s][v][1] += e.count;
+    for ev in chunks.iter().take(*used) {
+        for (i, e) in ev.iter().enumerate() {
+            // The records an event updates lie in per-voxel tables far larger than the caches:
+            // ask for those of an event further on while this one is settled.
+            if let Some(a) = ev.get(i + PREFETCH_AHEAD) {
+                let (s, v) = (a.species as usize, a.voxel as usize);
+                match a.kind {
+                    EventKind::Adsorption => prefetch(&mload.bound[s][v]),
+                    EventKind::Phagocytosis => prefetch(&gained[s][v]),
+                    EventKind::Bind => {
+                        prefetch(&sites.free[v]);
+                        prefetch(&gained[s][v]);
+                        prefetch(&packets.weight[a.index as usize]);
+                    }
+                }
             }
-            EventKind::Bind => {
-                let val = kin.species[s].valency as f64;
-                let free = sites.free(v);
-                let room = (free / val).floor().max(0.0) as u64;
-                let accepted = e.count.min(room);
-                if accepted > 0 {
+            let s = e.species as usize;
+            let v = e.voxel as usize;
+            match e.kind {
+                EventKind::Adsorption => mload.bound[s][v] += e.count,
+                EventKind::Phagocytosis => {
                     touch(e.voxel);
-                    gained[s][v][0] += accepted;
-                    sites.set_free(v, free - accepted as f64 * val);
-                    packets.weight[e.index as usize] -= accepted;
+                    gained[s][v][1] += e.count;
+                }
+                EventKind::Bind => {
+                    let val = kin.species[s].valency as f64;
+                    let free = sites.free(v);
+                    let room = (free / val).floor().max(0.0) as u64;
+                    let accepted = e.count.min(room);
+                    if accepted > 0 {
+                        touch(e.voxel);
+                        gained[s][v][0] += accepted;
+                        sites.set_free(v, free - accepted as f64 * val);
+                        packets.weight[e.index as usize] -= accepted;
+                    }
                 }
             }
         }

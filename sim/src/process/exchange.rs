@@ -87,6 +87,10 @@ pub struct WallExchange {
     /// Factor on the wall permeability of each species from an active route (a tissue-penetrating
     /// peptide, [`crate::process::interventions`]); missing entries are 1.
     pub route_factor: Vec<f64>,
+    /// Scratch of the influx, kept between steps: whole packets each site wants this step, and
+    /// the sites that get particles (site, particles, first new packet's row).
+    wanted: Vec<u64>,
+    births: Vec<(u32, u64, usize)>,
 }
 
 /// Patches of the continuum model: one uniform wall per voxel of each region.
@@ -289,45 +293,71 @@ pub fn exchange_system(
             pools.get_mut(s).give_back(*n);
         }
     }
-    // Influx, voxel by voxel in ascending order: packet ids are the same for any thread count.
-    let WallExchange { sites, influx, carry, .. } = &mut *ex;
+    // Influx: each site's expected packets with its carried fraction (in parallel: every site
+    // is its own), then the withdrawals from the plasma site by site in ascending order (the
+    // pool can run short), then the new packets written in place in parallel. Ids follow the
+    // site order and each site draws from its own stream, so the result is the same for any
+    // thread count.
+    let WallExchange { sites, influx, carry, wanted, births, .. } = &mut *ex;
+    const SITES_PER_TASK: usize = 512;
     for s in 0..ns {
         let w = designs.0[s].packet;
         let cv = pools.get(s).concentration();
         if cv <= 0.0 {
             continue;
         }
-        for (k, &v) in sites.iter().enumerate() {
-            let expected = influx[s][k] * cv * dt / w as f64 + carry[s][k];
+        wanted.resize(sites.len(), 0);
+        wanted.par_iter_mut().zip(carry[s].par_iter_mut()).zip(influx[s].par_iter()).for_each(|((out, c), &a)| {
+            let expected = a * cv * dt / w as f64 + *c;
             let n = expected.floor();
-            carry[s][k] = expected - n;
-            if n < 1.0 {
+            *c = expected - n;
+            *out = if n < 1.0 { 0 } else { n as u64 };
+        });
+        births.clear();
+        let mut rows = 0usize;
+        for (k, &n) in wanted.iter().enumerate() {
+            if n == 0 {
                 continue;
             }
-            let wanted = n as u64;
-            let got = pools.get_mut(s).withdraw(wanted * w);
-            let whole = got / w;
-            let rest = got - whole * w;
-            let ijk = lattice.ijk(v as usize);
-            let c = lattice.centre(ijk);
-            let mut rng = stream(seed, Domain::Extravasation, u64::from(v) | ((s as u64 + 1) << 40), step);
-            let h = lattice.h;
-            let mut place = |packets: &mut Packets, weight: u64| {
-                let x = [
-                    c[0] + (rng.uniform() - 0.5) * h,
-                    c[1] + (rng.uniform() - 0.5) * h,
-                    c[2] + (rng.uniform() - 0.5) * h,
-                ];
-                packets.push(&lattice, x, s as u8, weight);
-            };
-            for _ in 0..whole {
-                place(&mut packets, w);
+            let got = pools.get_mut(s).withdraw(n * w);
+            if got == 0 {
+                continue;
             }
-            if rest > 0 {
-                // The plasma ran short of a whole packet: the remainder travels as a smaller one.
-                place(&mut packets, rest);
-            }
+            births.push((sites[k], got, rows));
+            // Whole packets, and the remainder as a smaller one when the plasma ran short.
+            rows += got.div_ceil(w) as usize;
         }
+        if rows == 0 {
+            continue;
+        }
+        // The new rows, cut where each task's sites begin.
+        let mut tasks = Vec::with_capacity(births.len().div_ceil(SITES_PER_TASK));
+        let mut rest = packets.append(rows);
+        for (t, group) in births.chunks(SITES_PER_TASK).enumerate() {
+            let end = births.get((t + 1) * SITES_PER_TASK).map_or(rows, |b| b.2);
+            let (head, tail) = rest.split_at(end - group[0].2);
+            tasks.push((group, head));
+            rest = tail;
+        }
+        let h = lattice.h;
+        let lattice = &*lattice;
+        tasks.into_par_iter().for_each(|(group, mut out)| {
+            let first = group[0].2;
+            for &(v, got, row) in group {
+                let c = lattice.centre(lattice.ijk(v as usize));
+                let mut rng = stream(seed, Domain::Extravasation, u64::from(v) | ((s as u64 + 1) << 40), step);
+                let (whole, part) = (got / w, got % w);
+                let sizes = std::iter::repeat_n(w, whole as usize).chain((part > 0).then_some(part));
+                for (j, size) in sizes.enumerate() {
+                    let x = [
+                        c[0] + (rng.uniform() - 0.5) * h,
+                        c[1] + (rng.uniform() - 0.5) * h,
+                        c[2] + (rng.uniform() - 0.5) * h,
+                    ];
+                    out.set(row - first + j, lattice, x, s as u8, size);
+                }
+            }
+        });
     }
 }
 

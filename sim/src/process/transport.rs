@@ -239,8 +239,10 @@ pub struct MotionCache {
     /// Per voxel: fluid velocity on its six faces, voxel edges per second,
     /// `[x-, x+, y-, y+, z-, z+]`.
     faces: Vec<[f32; 6]>,
-    /// Per species: [`MotionFields::uniform`].
-    uniform: Vec<Vec<bool>>,
+    /// Per species and voxel: the diffusion coefficient `D = g / a` (voxel edges^2 per second)
+    /// where [`MotionFields::uniform`] marks the voxel, else -1 (the fine sub-steps); empty when
+    /// the marks are unknown. The single-step path reads only this and the faces.
+    coarse: Vec<Vec<f64>>,
     fc: Vec<f64>,
     n: [usize; 3],
 }
@@ -283,7 +285,21 @@ impl MotionCache {
                 ];
             }
         });
-        self.uniform.clone_from(&fields.uniform);
+        self.coarse.resize_with(fields.uniform.len(), Vec::new);
+        for (s, out) in self.coarse.iter_mut().enumerate() {
+            out.resize(n, -1.0);
+            let (coef, marks) = (&self.coef[s], &fields.uniform[s]);
+            out.par_iter_mut().enumerate().for_each(|(v, d)| {
+                let [g, a] = coef[v];
+                *d = if !marks[v] {
+                    -1.0
+                } else if a > 0.0 {
+                    (f64::from(g) / f64::from(a)).max(0.0)
+                } else {
+                    0.0
+                };
+            });
+        }
         self.fc.clone_from(&fields.fc);
     }
 }
@@ -479,7 +495,7 @@ pub fn move_packets_packed(
                     let (a, t) = (ahead as usize, sp[i + PREFETCH_AHEAD] as usize);
                     prefetch(&cache.faces[a]);
                     prefetch(&cache.coef[t][a]);
-                    if let Some(f) = cache.uniform.get(t) {
+                    if let Some(f) = cache.coarse.get(t) {
                         prefetch(&f[a]);
                     }
                 }
@@ -494,8 +510,6 @@ pub fn move_packets_packed(
                 // Sub-steps from the coefficients of the starting voxel.
                 let c0 = grid.cell(&u);
                 let v0 = grid.index(&c0);
-                let [g0, a0] = coef[v0];
-                let d_here = if a0 > 0.0 { (f64::from(g0) / f64::from(a0)).max(0.0) } else { 0.0 };
                 let f0 = &cache.faces[v0];
                 let w0 = velocity(f0, &c0, &u);
                 let umax = w0.iter().fold(0.0f64, |m, x| m.max(x.abs())) * fc.abs();
@@ -507,13 +521,14 @@ pub fn move_packets_packed(
                 // keeps the move inside the uniform neighbourhood; uniform increments are bounded
                 // (|xi| <= sqrt 3), so the bound holds for every draw. The drift keeps the fine
                 // criteria (at most `lmax`, and the velocity change bound).
-                let coarse = uniform_increments
+                // `D` of a marked starting voxel comes packed on its own (negative: unmarked).
+                let d_uniform = if uniform_increments { cache.coarse.get(s).map_or(-1.0, |c| c[v0]) } else { -1.0 };
+                let coarse = d_uniform >= 0.0
                     && umax * dt <= lmax
                     && change * dt <= VELOCITY_CHANGE_PER_SUBSTEP
-                    && cache.uniform.get(s).is_some_and(|f| f[v0])
-                    && (6.0 * d_here * dt).sqrt() + umax * dt <= 1.25;
+                    && (6.0 * d_uniform * dt).sqrt() + umax * dt <= 1.25;
                 if coarse {
-                    let amp = (2.0 * d_here * dt).sqrt();
+                    let amp = (2.0 * d_uniform * dt).sqrt();
                     let xi = rng.unit_variance_uniform3();
                     for ax in 0..3 {
                         u[ax] += fc * w0[ax] * dt + amp * xi[ax];
@@ -523,6 +538,8 @@ pub fn move_packets_packed(
                     vox[i] = grid.index(&c) as u32;
                     continue;
                 }
+                let [g0, a0] = coef[v0];
+                let d_here = if a0 > 0.0 { (f64::from(g0) / f64::from(a0)).max(0.0) } else { 0.0 };
                 let nsub = substeps(d_here, umax, change, dt, lmax);
                 let h = dt / nsub as f64;
                 let mut gone = false;
