@@ -100,6 +100,11 @@ impl PhaseTimes {
         Phase::ALL.iter().copied().zip(self.seconds.iter().copied())
     }
 
+    /// `name=seconds` of every set, space-separated (the run file's provenance `process_wall_s`).
+    pub fn record(&self) -> String {
+        self.by_phase().map(|(p, s)| format!("{}={s:.3}", p.name())).collect::<Vec<_>>().join(" ")
+    }
+
     /// One line for a report: each set's seconds and share of the total, sets that took under
     /// a millisecond left out.
     pub fn summary(&self) -> String {

@@ -44,6 +44,19 @@ def main():
     for key in ["version", "git_commit", "threads", "seed", "wall_time_s"]:
         if key not in prov.attrs:
             fail(f"provenance lacks {key}")
+    def text(v):
+        return v.decode() if isinstance(v, bytes) else str(v)
+
+    if text(f.attrs["status"]) == "finished":
+        # Seconds per process set: the eight sets of a step, none negative, together at most the
+        # run's wall time (the rest is set-up and output outside the steps).
+        parts = dict(p.split("=") for p in text(prov.attrs["process_wall_s"]).split())
+        sets = ["blood", "pressure", "exchange", "transport", "binding", "interventions", "advance", "output"]
+        if list(parts) != sets:
+            fail(f"process_wall_s names {list(parts)}")
+        secs = [float(v) for v in parts.values()]
+        if min(secs) < 0 or sum(secs) > float(text(prov.attrs["wall_time_s"])) + 0.01:
+            fail(f"process_wall_s {secs} against wall_time_s {text(prov.attrs['wall_time_s'])}")
     scen = tomllib.loads(prov["resolved_toml"][()].decode())
     # Tumour geometry recomputed from the stored scenario.
     t = scen["tumour"]

@@ -6,7 +6,9 @@
 //! /                          format, format_version, status, finished_snapshots, caution
 //! /lattice                   shape_xyz, voxel_size (m), origin (m)
 //! /provenance                version, git_commit, rustc, build_profile, threads, seed,
-//!                            started_unix_s, wall_time_s; datasets scenario_toml, resolved_toml
+//!                            started_unix_s, wall_time_s, process_wall_s ("blood=0.012
+//!                            pressure=1.503 ...": seconds in each process set of the step);
+//!                            datasets scenario_toml, resolved_toml
 //! /mesh                      points, hexahedra (explicit XDMF topology, small lattices only)
 //! /snapshots/NNNNNN          time_s, step, complete
 //!     fields/<name>          [nz, ny, nx] chunked, deflate-compressed

@@ -264,10 +264,14 @@ pub fn snapshot_when_due(world: &mut World) {
     }
 }
 
-/// Records the wall time and status and closes the run file.
+/// Records the wall time, the time in each process set and the status, and closes the run file.
 pub fn close_run_file(world: &mut World, status: &str, wall_time_s: f64) -> SimResult<()> {
+    let times = world.get_resource::<crate::world::PhaseTimes>().map(|t| t.record());
     if let Some(mut f) = world.resource_mut::<OutputFile>().0.take() {
         f.set_provenance("wall_time_s", &format!("{wall_time_s:.3}"))?;
+        if let Some(t) = times {
+            f.set_provenance("process_wall_s", &t)?;
+        }
         f.close(status)?;
     }
     Ok(())
