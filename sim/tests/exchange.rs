@@ -144,3 +144,49 @@ fn interstitial_particles_return_at_the_patlak_rate() {
         assert!(p_left > 0.05 && p_left < 0.95, "the test should see a partial return: {p_left}");
     }
 }
+
+#[test]
+fn a_plasma_that_runs_short_gives_its_last_particles_as_a_smaller_packet() {
+    // Exact particle counts (the accounting rule): four wall sites each want one packet
+    // of 1000 particles in a step from a plasma that holds 2500. The sites are served in
+    // ascending voxel order: two whole packets, then the remaining 500 as one smaller packet,
+    // and nothing for the fourth site; no particle is lost or made.
+    let text = SCENARIO.replace("dose_particles = 1e14", "dose_particles = 2500");
+    let loaded = LoadedScenario::from_text(Path::new("short.toml"), text).unwrap();
+    let mut sim = Simulation::new(&loaded).unwrap();
+    let l = sim.lattice().clone();
+    sim.world.insert_resource(MotionFields::uniform(&l, 0.0, 0.25));
+    let set_walls = |sim: &mut Simulation, ps: f64| {
+        let mut ps_arr = [0.0; MAX_SPECIES];
+        ps_arr[0] = ps;
+        let mut pass = [0.0; MAX_SPECIES];
+        pass[0] = 1.0;
+        let patches = (0..4).map(|v| Patch { voxel: v, lp_s: 0.0, drive: 0.0, ps: ps_arr, pass }).collect();
+        sim.world.resource_scope(|world, mut ex: bevy_ecs::world::Mut<WallExchange>| {
+            ex.patches = patches;
+            ex.update(&l, world.resource::<MotionFields>(), 1, None);
+        });
+        let solves =
+            sim.world.get_resource::<interstice_sim::process::pressure::InterstitialFluid>().map_or(0, |f| f.solves);
+        let revision = sim.world.resource::<WallExchange>().seen.0;
+        sim.world.resource_mut::<WallExchange>().seen = (revision, solves);
+    };
+    // A first step without influx gives the bolus to the plasma.
+    set_walls(&mut sim, 0.0);
+    sim.step().unwrap();
+    assert!(sim.world.resource::<Packets>().is_empty());
+    // Then walls whose diffusive influx (a = P S) wants 1.5 packets per site in the next step.
+    let cv = sim.world.resource::<PlasmaPools>().get(0).concentration();
+    let dt = sim.params.run.time_step;
+    set_walls(&mut sim, 1.5 * 1000.0 / (cv * dt));
+    sim.step().unwrap();
+    let pool = sim.world.resource::<PlasmaPools>().get(0).clone();
+    let p = sim.world.resource::<Packets>();
+    let in_plasma = 2500 - pool.cleared - pool.peripheral;
+    assert!(in_plasma > 2000, "the plasma lost {} particles in two steps", 2500 - in_plasma);
+    assert_eq!(pool.amount, 0, "the plasma should be empty");
+    assert_eq!(p.weight, vec![1000, 1000, in_plasma - 2000]);
+    assert_eq!(p.voxel, vec![0, 1, 2]);
+    assert_eq!(pool.to_tissue, p.weight.iter().sum::<u64>());
+    assert!(pool.balanced());
+}
