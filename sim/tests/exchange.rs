@@ -39,26 +39,38 @@ half_life_h = 1e5
 /// A world without sinks in the tissue (no cells, lymphatics or matrix adsorption) whose only wall is one patch at voxel 0 with the given `Jv (1 - sigma_f)` (set through
 /// `drive`, with `lp_s = 0`, so it does not depend on the interstitial pressure) and `P S`.
 fn one_patch(jv_eff: f64, ps: f64) -> Simulation {
-    let loaded = LoadedScenario::from_text(Path::new("patlak.toml"), SCENARIO.to_string()).unwrap();
+    let mut sim = sink_free_world(SCENARIO);
+    set_walls(&mut sim, &[0], jv_eff, ps);
+    sim
+}
+
+/// The world of `text` with uniform motion coefficients (no diffusion, accessible fraction 0.25).
+fn sink_free_world(text: &str) -> Simulation {
+    let loaded = LoadedScenario::from_text(Path::new("patlak.toml"), text.to_string()).unwrap();
     let mut sim = Simulation::new(&loaded).unwrap();
     let l = sim.lattice().clone();
     sim.world.insert_resource(MotionFields::uniform(&l, 0.0, 0.25));
+    sim
+}
+
+/// Replaces the walls by one patch at each of `voxels` with `Jv (1 - sigma_f)` = `jv_eff`
+/// (through `drive`, `lp_s = 0`) and `P S` = `ps`, and recomputes their coefficients.
+fn set_walls(sim: &mut Simulation, voxels: &[u32], jv_eff: f64, ps: f64) {
+    let l = sim.lattice().clone();
     let mut ps_arr = [0.0; MAX_SPECIES];
     ps_arr[0] = ps;
     let mut pass = [0.0; MAX_SPECIES];
     pass[0] = 1.0;
-    let patch = Patch { voxel: 0, lp_s: 0.0, drive: jv_eff, ps: ps_arr, pass };
-    let seen = sim.world.resource::<WallExchange>().seen;
+    let patches = voxels.iter().map(|&v| Patch { voxel: v, lp_s: 0.0, drive: jv_eff, ps: ps_arr, pass }).collect();
     sim.world.resource_scope(|world, mut ex: bevy_ecs::world::Mut<WallExchange>| {
-        ex.patches = vec![patch];
+        ex.patches = patches;
         ex.update(&l, world.resource::<MotionFields>(), 1, None);
     });
-    // Keep the refresh from recomputing the patch from the scenario's own walls.
+    // Keep the refresh from recomputing the patches from the scenario's own walls.
     let solves =
         sim.world.get_resource::<interstice_sim::process::pressure::InterstitialFluid>().map_or(0, |f| f.solves);
-    let revision = seen.0;
+    let revision = sim.world.resource::<WallExchange>().seen.0;
     sim.world.resource_mut::<WallExchange>().seen = (revision, solves);
-    sim
 }
 
 /// Influx over `steps` steps into tissue kept empty (every packet removed after each step).
@@ -151,34 +163,15 @@ fn a_plasma_that_runs_short_gives_its_last_particles_as_a_smaller_packet() {
     // of 1000 particles in a step from a plasma that holds 2500. The sites are served in
     // ascending voxel order: two whole packets, then the remaining 500 as one smaller packet,
     // and nothing for the fourth site; no particle is lost or made.
-    let text = SCENARIO.replace("dose_particles = 1e14", "dose_particles = 2500");
-    let loaded = LoadedScenario::from_text(Path::new("short.toml"), text).unwrap();
-    let mut sim = Simulation::new(&loaded).unwrap();
-    let l = sim.lattice().clone();
-    sim.world.insert_resource(MotionFields::uniform(&l, 0.0, 0.25));
-    let set_walls = |sim: &mut Simulation, ps: f64| {
-        let mut ps_arr = [0.0; MAX_SPECIES];
-        ps_arr[0] = ps;
-        let mut pass = [0.0; MAX_SPECIES];
-        pass[0] = 1.0;
-        let patches = (0..4).map(|v| Patch { voxel: v, lp_s: 0.0, drive: 0.0, ps: ps_arr, pass }).collect();
-        sim.world.resource_scope(|world, mut ex: bevy_ecs::world::Mut<WallExchange>| {
-            ex.patches = patches;
-            ex.update(&l, world.resource::<MotionFields>(), 1, None);
-        });
-        let solves =
-            sim.world.get_resource::<interstice_sim::process::pressure::InterstitialFluid>().map_or(0, |f| f.solves);
-        let revision = sim.world.resource::<WallExchange>().seen.0;
-        sim.world.resource_mut::<WallExchange>().seen = (revision, solves);
-    };
+    let mut sim = sink_free_world(&SCENARIO.replace("dose_particles = 1e14", "dose_particles = 2500"));
     // A first step without influx gives the bolus to the plasma.
-    set_walls(&mut sim, 0.0);
+    set_walls(&mut sim, &[0, 1, 2, 3], 0.0, 0.0);
     sim.step().unwrap();
     assert!(sim.world.resource::<Packets>().is_empty());
     // Then walls whose diffusive influx (a = P S) wants 1.5 packets per site in the next step.
     let cv = sim.world.resource::<PlasmaPools>().get(0).concentration();
     let dt = sim.params.run.time_step;
-    set_walls(&mut sim, 1.5 * 1000.0 / (cv * dt));
+    set_walls(&mut sim, &[0, 1, 2, 3], 0.0, 1.5 * 1000.0 / (cv * dt));
     sim.step().unwrap();
     let pool = sim.world.resource::<PlasmaPools>().get(0).clone();
     let p = sim.world.resource::<Packets>();

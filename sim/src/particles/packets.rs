@@ -195,16 +195,6 @@ pub struct Rows<'a> {
 }
 
 impl<'a> Rows<'a> {
-    /// Number of rows.
-    pub fn len(&self) -> usize {
-        self.pos.len()
-    }
-
-    /// Whether there are none.
-    pub fn is_empty(&self) -> bool {
-        self.pos.is_empty()
-    }
-
     /// The first `mid` rows and the rest.
     pub fn split_at(self, mid: usize) -> (Rows<'a>, Rows<'a>) {
         let (p0, p1) = self.pos.split_at_mut(mid);
