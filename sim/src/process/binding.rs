@@ -268,18 +268,28 @@ enum EventKind {
 #[derive(Resource, Default)]
 pub struct EventBuffers {
     chunks: Vec<Vec<Event>>,
+    /// Lowest and highest voxel among each chunk's events (`(u32::MAX, 0)` for none): the
+    /// packets are kept in voxel order, so a chunk's events span few of the settlement's ranges.
+    spans: Vec<(u32, u32)>,
     /// Chunks filled by the last pass.
     used: usize,
     /// Per species and voxel: particles the voxel's cell bound and took up in this settlement.
     gained: Vec<Vec<[u64; 2]>>,
-    /// Voxels whose cell gained particles in this settlement, each once, in order of first gain.
-    touched: Vec<u32>,
-    /// The same voxels as a bit set (bit `v % 64` of word `v / 64`): small enough to stay in
+    /// Per voxel range of the settlement: voxels whose cell gained particles, each once.
+    touched: Vec<Vec<u32>>,
+    /// Per voxel range: (packet index, particles bound) of the granted binding requests.
+    granted: Vec<Vec<(u32, u64)>>,
+    /// The touched voxels as a bit set (bit `v % 64` of word `v / 64`): small enough to stay in
     /// cache while the hand-over pass scans every cell.
     touched_bits: Vec<u64>,
 }
 
 const CHUNK: usize = 2048;
+
+/// Voxel ranges the settlement is split into (each a whole number of 64-voxel words of the
+/// touched bit set). A fixed count: the settlement's results do not depend on it at all, since
+/// every voxel's events are settled in packet order whatever the ranges.
+const SETTLE_RANGES: usize = 16;
 
 /// Draws a binomial split of `n` among rates `k` (sum `total`), in order: each channel takes a
 /// Binomial(left, k_c / rate left) share, the last channel of nonzero rate all that is left
@@ -366,6 +376,7 @@ fn react_packets(
     if bufs.chunks.len() < n_chunks {
         bufs.chunks.resize_with(n_chunks, Vec::new);
     }
+    bufs.spans.resize(bufs.chunks.len(), (u32::MAX, 0));
     let Packets { id, voxel, species, weight, .. } = packets;
     let streams = Streams::new(seed, Domain::Binding);
     let drained = weight
@@ -373,9 +384,9 @@ fn react_packets(
         .zip(voxel.par_chunks(CHUNK))
         .zip(id.par_chunks(CHUNK))
         .zip(species.par_chunks(CHUNK))
-        .zip(bufs.chunks.par_iter_mut())
+        .zip(bufs.chunks.par_iter_mut().zip(bufs.spans.par_iter_mut()))
         .enumerate()
-        .map(|(c, ((((wt, vox), ids), sp), ev))| {
+        .map(|(c, ((((wt, vox), ids), sp), (ev, span)))| {
             ev.clear();
             let mut drained = [0u64; MAX_SPECIES];
             for i in 0..wt.len() {
@@ -420,6 +431,7 @@ fn react_packets(
                     ev.push(Event { kind: EventKind::Adsorption, count: na, ..base });
                 }
             }
+            *span = ev.iter().fold((u32::MAX, 0), |(lo, hi), e| (lo.min(e.voxel), hi.max(e.voxel)));
             drained
         })
         .reduce(
@@ -467,66 +479,9 @@ pub fn packet_reactions(
     for (total, n) in ledger.drained.iter_mut().zip(drained) {
         *total += n;
     }
-    // Events are settled in packet order (chunks in order, each in packet order): the packets'
-    // order is the same for any thread count, and so is every settlement. The voxel's mirror of
-    // its cell's free receptors ([`CellSites`]) is the account binding draws on; what each cell
-    // gained is gathered per voxel and handed to the cells afterwards in one parallel pass in
-    // their own storage order (reading a cell's components per event would wait on memory).
-    let EventBuffers { chunks, used, gained, touched, touched_bits } = &mut *bufs;
-    let ns = kin.species.len();
-    if gained.len() != ns || gained.first().is_some_and(|g| g.len() != lattice.len()) {
-        *gained = vec![vec![[0u64; 2]; lattice.len()]; ns];
-    }
-    touched_bits.resize(lattice.len().div_ceil(64), 0);
-    touched.clear();
-    // A voxel's first gain of this settlement (over every species) lists it once in `touched`.
-    let mut touch = |v: u32| {
-        let (word, bit) = ((v / 64) as usize, 1u64 << (v % 64));
-        if touched_bits[word] & bit == 0 {
-            touched_bits[word] |= bit;
-            touched.push(v);
-        }
-    };
-    for ev in chunks.iter().take(*used) {
-        for (i, e) in ev.iter().enumerate() {
-            // The records an event updates lie in per-voxel tables far larger than the caches:
-            // ask for those of an event further on while this one is settled.
-            if let Some(a) = ev.get(i + PREFETCH_AHEAD) {
-                let (s, v) = (a.species as usize, a.voxel as usize);
-                match a.kind {
-                    EventKind::Adsorption => prefetch(&mload.bound[s][v]),
-                    EventKind::Phagocytosis => prefetch(&gained[s][v]),
-                    EventKind::Bind => {
-                        prefetch(&sites.free[v]);
-                        prefetch(&gained[s][v]);
-                        prefetch(&packets.weight[a.index as usize]);
-                    }
-                }
-            }
-            let s = e.species as usize;
-            let v = e.voxel as usize;
-            match e.kind {
-                EventKind::Adsorption => mload.bound[s][v] += e.count,
-                EventKind::Phagocytosis => {
-                    touch(e.voxel);
-                    gained[s][v][1] += e.count;
-                }
-                EventKind::Bind => {
-                    let val = kin.species[s].valency as f64;
-                    let free = sites.free(v);
-                    let room = (free / val).floor().max(0.0) as u64;
-                    let accepted = e.count.min(room);
-                    if accepted > 0 {
-                        touch(e.voxel);
-                        gained[s][v][0] += accepted;
-                        sites.set_free(v, free - accepted as f64 * val);
-                        packets.weight[e.index as usize] -= accepted;
-                    }
-                }
-            }
-        }
-    }
-    if touched.is_empty() {
+    settle(&mut bufs, &kin, &sites, &mut mload, &mut packets.weight, lattice.len());
+    let EventBuffers { gained, touched, touched_bits, .. } = &mut *bufs;
+    if touched.iter().all(Vec::is_empty) {
         return;
     }
     let newly = Mutex::new(Vec::new());
@@ -553,11 +508,131 @@ pub fn packet_reactions(
     for e in newly {
         active.0.insert(e);
     }
-    for &v in touched.iter() {
+    for &v in touched.iter().flatten() {
         for g in gained.iter_mut() {
             g[v as usize] = [0, 0];
         }
         touched_bits[(v / 64) as usize] = 0;
+    }
+}
+
+/// One voxel range's share of the settlement: its slices of the per-voxel tables and its lists.
+struct SettleRange<'a> {
+    /// First voxel of the range.
+    lo: u32,
+    /// One past its last voxel.
+    hi: u32,
+    bound: Vec<&'a mut [u64]>,
+    gained: Vec<&'a mut [[u64; 2]]>,
+    bits: &'a mut [u64],
+    touched: &'a mut Vec<u32>,
+    granted: &'a mut Vec<(u32, u64)>,
+}
+
+/// Settles the events of the last reaction pass: adsorption onto the voxel's matrix, uptake by
+/// its phagocyte, and binding requests granted against the free receptors of its cell (each
+/// request capped by what is left, so the order of requests at a voxel matters). Every voxel's
+/// events are settled in packet order (chunks in order, each in packet order): the packets'
+/// order is the same for any thread count, and so is every settlement. Voxels do not share
+/// state, so the lattice is cut into [`SETTLE_RANGES`] ranges settled in parallel, each
+/// scanning only the chunks whose events reach it. The voxel's mirror of its cell's free
+/// receptors ([`CellSites`]) is the account binding draws on; what each cell gained is gathered
+/// per voxel and handed to the cells afterwards; granted requests leave their packets last.
+fn settle(
+    bufs: &mut EventBuffers,
+    kin: &Kinetics,
+    sites: &CellSites,
+    mload: &mut MatrixLoad,
+    weight: &mut [u64],
+    n_voxels: usize,
+) {
+    let EventBuffers { chunks, spans, used, gained, touched, granted, touched_bits } = bufs;
+    let ns = kin.species.len();
+    if gained.len() != ns || gained.first().is_some_and(|g| g.len() != n_voxels) {
+        *gained = vec![vec![[0u64; 2]; n_voxels]; ns];
+    }
+    touched_bits.resize(n_voxels.div_ceil(64), 0);
+    let width = n_voxels.div_ceil(SETTLE_RANGES).next_multiple_of(64).max(64);
+    let n_ranges = n_voxels.div_ceil(width);
+    touched.resize_with(n_ranges, Vec::new);
+    granted.resize_with(n_ranges, Vec::new);
+    let mut bound_parts: Vec<_> = mload.bound.iter_mut().map(|b| b.chunks_mut(width)).collect();
+    let mut gained_parts: Vec<_> = gained.iter_mut().map(|g| g.chunks_mut(width)).collect();
+    let ranges: Vec<SettleRange> = touched_bits
+        .chunks_mut(width / 64)
+        .zip(touched.iter_mut().zip(granted.iter_mut()))
+        .enumerate()
+        .map(|(r, (bits, (touched, granted)))| SettleRange {
+            lo: (r * width) as u32,
+            hi: ((r + 1) * width).min(n_voxels) as u32,
+            bound: bound_parts.iter_mut().map(|it| it.next().expect("one slice per range")).collect(),
+            gained: gained_parts.iter_mut().map(|it| it.next().expect("one slice per range")).collect(),
+            bits,
+            touched,
+            granted,
+        })
+        .collect();
+    let chunks = &chunks[..*used];
+    let spans = &spans[..*used];
+    ranges.into_par_iter().for_each(|mut r| {
+        r.touched.clear();
+        r.granted.clear();
+        let (lo, hi) = (r.lo, r.hi);
+        for (ev, &(first, last)) in chunks.iter().zip(spans) {
+            if last < lo || first >= hi {
+                continue;
+            }
+            for (i, e) in ev.iter().enumerate() {
+                // The records an event updates lie in per-voxel tables far larger than the
+                // caches: ask for those of an event further on while this one is settled.
+                if let Some(a) = ev.get(i + PREFETCH_AHEAD).filter(|a| (lo..hi).contains(&a.voxel)) {
+                    let (s, v) = (a.species as usize, (a.voxel - lo) as usize);
+                    match a.kind {
+                        EventKind::Adsorption => prefetch(&r.bound[s][v]),
+                        EventKind::Phagocytosis => prefetch(&r.gained[s][v]),
+                        EventKind::Bind => {
+                            prefetch(&sites.free[a.voxel as usize]);
+                            prefetch(&r.gained[s][v]);
+                        }
+                    }
+                }
+                if !(lo..hi).contains(&e.voxel) {
+                    continue;
+                }
+                let s = e.species as usize;
+                let v = (e.voxel - lo) as usize;
+                // A voxel's first gain of this settlement (over every species) lists it once.
+                let touch = |r: &mut SettleRange| {
+                    let (word, bit) = (v / 64, 1u64 << (v % 64));
+                    if r.bits[word] & bit == 0 {
+                        r.bits[word] |= bit;
+                        r.touched.push(e.voxel);
+                    }
+                };
+                match e.kind {
+                    EventKind::Adsorption => r.bound[s][v] += e.count,
+                    EventKind::Phagocytosis => {
+                        touch(&mut r);
+                        r.gained[s][v][1] += e.count;
+                    }
+                    EventKind::Bind => {
+                        let val = kin.species[s].valency as f64;
+                        let free = sites.free(e.voxel as usize);
+                        let room = (free / val).floor().max(0.0) as u64;
+                        let accepted = e.count.min(room);
+                        if accepted > 0 {
+                            touch(&mut r);
+                            r.gained[s][v][0] += accepted;
+                            sites.set_free(e.voxel as usize, free - accepted as f64 * val);
+                            r.granted.push((e.index, accepted));
+                        }
+                    }
+                }
+            }
+        }
+    });
+    for &(i, k) in granted.iter().flatten() {
+        weight[i as usize] -= k;
     }
 }
 
