@@ -22,7 +22,7 @@ use hdf5::{File, Group, H5Type};
 use crate::error::{SimError, SimResult};
 use crate::particles::Packets;
 use crate::process::accounting::Ledger;
-use crate::process::binding::{ActiveCells, CellSites, MatrixLoad};
+use crate::process::binding::{ActiveCells, CellGains, CellSites, MatrixLoad};
 use crate::process::exchange::WallExchange;
 use crate::process::plasma::PlasmaPools;
 use crate::tissue::{Cell, CellKind, CellLoad, MAX_SPECIES, Matrix, Occupancy, Receptors};
@@ -68,6 +68,7 @@ fn read_attr<T: H5Type>(g: &hdf5::Location, name: &str) -> hdf5::Result<T> {
 
 /// Writes the checkpoint of `world` for the scenario with fingerprint `fp`.
 pub fn write(world: &mut World, path: &Path, fp: &str) -> SimResult<()> {
+    crate::process::binding::hand_over_gains(world);
     let tmp = path.with_extension("tmp");
     let err = |what: &str| SimError::hdf5(path, what.to_string());
     {
@@ -104,7 +105,7 @@ fn save(world: &mut World, f: &File, fp: &str) -> hdf5::Result<()> {
     put(&g, "weight", &p.weight)?;
 
     // Cells in voxel order.
-    let active = world.resource::<ActiveCells>().0.clone();
+    let active = world.resource::<ActiveCells>().cells.clone();
     let mut q = world.query::<(Entity, &Cell, &Receptors, &CellLoad)>();
     let mut rows: Vec<(Cell, Receptors, CellLoad, bool)> =
         q.iter(world).map(|(e, c, r, l)| (*c, *r, *l, active.contains(&e))).collect();
@@ -261,11 +262,14 @@ fn load(world: &mut World, f: &File) -> hdf5::Result<u64> {
     for (i, e) in entities.iter().enumerate() {
         occ[voxel[i] as usize] = Some(*e);
         if act[i] == 1 {
-            active.0.insert(*e);
+            active.insert(*e, voxel[i]);
         }
     }
     world.insert_resource(Occupancy { cell: occ });
     world.insert_resource(active);
+    // The checkpoint was written with every gain handed over to its cell.
+    let species = world.resource::<crate::particles::Designs>().len();
+    world.insert_resource(CellGains::new(species, n));
     let mut sites = CellSites::new(n);
     let mut q = world.query::<(&Cell, &Receptors)>();
     sites.rebuild(q.iter(world));

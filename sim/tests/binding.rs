@@ -81,6 +81,7 @@ internalisation_per_s = 0.0
     for step in 0..steps {
         sim.step().unwrap();
         if step >= steps / 2 {
+            interstice_sim::process::binding::hand_over_gains(&mut sim.world);
             let mut bound = 0u64;
             for load in sim.world.query::<&CellLoad>().iter(&sim.world) {
                 bound += load.bound[0];

@@ -213,6 +213,7 @@ fn a_penetrating_peptide_multiplies_wall_and_tissue_transport_while_it_acts() {
 
 /// State that any later output is a function of: packets, ledger, plasma, cell loads.
 fn state(s: &mut Simulation) -> (Vec<u64>, Vec<u32>, String, String, Vec<[u64; 8]>) {
+    interstice_sim::process::binding::hand_over_gains(&mut s.world);
     let p = s.world.resource::<Packets>();
     let ids = p.id.clone();
     let vox = p.voxel.clone();

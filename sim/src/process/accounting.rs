@@ -106,6 +106,14 @@ pub fn balances(world: &World) -> Vec<Balance> {
             }
         }
     }
+    // Gains the cells have not taken in yet.
+    if let Some(g) = world.get_resource::<crate::process::binding::CellGains>() {
+        for (s, b) in out.iter_mut().enumerate() {
+            let [bound, inside] = g.pending(s);
+            b.bound_cells += bound;
+            b.internalised += inside;
+        }
+    }
     out
 }
 

@@ -212,7 +212,93 @@ pub struct DesorptionInterval(pub u64);
 /// Cells that hold particles or are recovering receptors: the only ones whose own kinetics need
 /// updating. A cell joins when a particle first binds to it or is taken up by it.
 #[derive(Resource, Debug, Default)]
-pub struct ActiveCells(pub EntityIndexSet);
+pub struct ActiveCells {
+    /// The active cells, in the order they joined.
+    pub cells: EntityIndexSet,
+    /// Their voxels as a bit set (bit `v % 64` of word `v / 64`), which the settlement reads to
+    /// find the cells that join.
+    voxels: Vec<u64>,
+}
+
+impl ActiveCells {
+    /// Adds the cell `e` at voxel `v`.
+    pub fn insert(&mut self, e: Entity, v: u32) {
+        let word = (v / 64) as usize;
+        if self.voxels.len() <= word {
+            self.voxels.resize(word + 1, 0);
+        }
+        self.voxels[word] |= 1 << (v % 64);
+        self.cells.insert(e);
+    }
+}
+
+/// Particles bound and taken up by each voxel's cell since that cell last took them into its
+/// [`CellLoad`], per species: `[bound, internalised]`. The settlement adds to them; a cell takes
+/// its share when its own kinetics next run ([`cell_kinetics`], every [`CellInterval`] steps and
+/// at the last step), and every cell takes its share before a snapshot or a checkpoint reads the
+/// cells ([`hand_over_gains`]). Handing gains over only then, instead of after every settlement,
+/// spares a pass over every cell each step; the results are the same, since nothing else reads
+/// a cell's load or free receptors in between (the settlement draws on the voxel's mirror of
+/// its free receptors, [`CellSites`], which is always current), and [`crate::process::accounting`]
+/// counts the gains not yet handed over.
+#[derive(Resource, Debug, Default)]
+pub struct CellGains {
+    per_species: Vec<Vec<[AtomicU64; 2]>>,
+}
+
+impl CellGains {
+    /// Empty gains for `species` species on `n` voxels.
+    pub fn new(species: usize, n: usize) -> Self {
+        CellGains { per_species: (0..species).map(|_| (0..n).map(|_| Default::default()).collect()).collect() }
+    }
+
+    /// Takes the gains of voxel `v`'s cell into `load` and clears them; returns whether there
+    /// were any. Only the cell of voxel `v` may call this (cells update in parallel).
+    #[inline]
+    fn take_into(&self, v: usize, load: &mut CellLoad) -> bool {
+        let mut any = false;
+        for (s, g) in self.per_species.iter().enumerate() {
+            let [b, i] = [g[v][0].load(Ordering::Relaxed), g[v][1].load(Ordering::Relaxed)];
+            if b > 0 || i > 0 {
+                load.bound[s] += b;
+                load.internalised[s] += i;
+                g[v][0].store(0, Ordering::Relaxed);
+                g[v][1].store(0, Ordering::Relaxed);
+                any = true;
+            }
+        }
+        any
+    }
+
+    /// Particles of species `s` bound and internalised but not yet handed over to the cells.
+    pub fn pending(&self, s: usize) -> [u64; 2] {
+        self.per_species.get(s).map_or([0, 0], |g| {
+            g.par_iter()
+                .map(|x| [x[0].load(Ordering::Relaxed), x[1].load(Ordering::Relaxed)])
+                .reduce(|| [0, 0], |a, b| [a[0] + b[0], a[1] + b[1]])
+        })
+    }
+}
+
+/// Brings every cell up to date with the settlements since its last update: pending
+/// [`CellGains`] into its [`CellLoad`] and its free receptors from [`CellSites`] (before
+/// anything reads the cells as a whole: snapshots, checkpoints, tests). Changes no result.
+pub fn hand_over_gains(world: &mut World) {
+    if !world.contains_resource::<CellGains>() || !world.contains_resource::<CellSites>() {
+        return;
+    }
+    world.resource_scope(|world, gains: Mut<CellGains>| {
+        world.resource_scope(|world, sites: Mut<CellSites>| {
+            let mut q = world.query::<(&Cell, &mut Receptors, &mut CellLoad)>();
+            q.par_iter_mut(world).for_each(|(cell, mut rec, mut load)| {
+                let v = cell.voxel as usize;
+                if gains.per_species.first().is_some_and(|g| g.len() > v) && gains.take_into(v, &mut load) {
+                    rec.free = sites.free(v);
+                }
+            });
+        });
+    });
+}
 
 /// The active cells sorted by the phase of the kinetics interval their voxel falls in (cell
 /// `voxel` updates at the steps with `(step + voxel) % interval == 0`), so a step visits only
@@ -273,22 +359,17 @@ pub struct EventBuffers {
     spans: Vec<(u32, u32)>,
     /// Chunks filled by the last pass.
     used: usize,
-    /// Per species and voxel: particles the voxel's cell bound and took up in this settlement.
-    gained: Vec<Vec<[u64; 2]>>,
-    /// Per voxel range of the settlement: voxels whose cell gained particles, each once.
-    touched: Vec<Vec<u32>>,
+    /// Per voxel range of the settlement: voxels whose cell gained its first particles.
+    joined: Vec<Vec<u32>>,
     /// Per voxel range: (packet index, particles bound) of the granted binding requests.
     granted: Vec<Vec<(u32, u64)>>,
-    /// The touched voxels as a bit set (bit `v % 64` of word `v / 64`): small enough to stay in
-    /// cache while the hand-over pass scans every cell.
-    touched_bits: Vec<u64>,
 }
 
 const CHUNK: usize = 2048;
 
 /// Voxel ranges the settlement is split into (each a whole number of 64-voxel words of the
-/// touched bit set). A fixed count: the settlement's results do not depend on it at all, since
-/// every voxel's events are settled in packet order whatever the ranges.
+/// active cells' voxel bit set). A fixed count: the settlement's results do not depend on it at
+/// all, since every voxel's events are settled in packet order whatever the ranges.
 const SETTLE_RANGES: usize = 16;
 
 /// Draws a binomial split of `n` among rates `k` (sum `total`), in order: each channel takes a
@@ -460,8 +541,7 @@ pub fn packet_reactions(
     mut bufs: ResMut<EventBuffers>,
     mut mload: ResMut<MatrixLoad>,
     mut ledger: ResMut<Ledger>,
-    mut active: ResMut<ActiveCells>,
-    mut cells: Query<(Entity, &Cell, &mut Receptors, &mut CellLoad)>,
+    (mut active, mut gains, occupancy): (ResMut<ActiveCells>, ResMut<CellGains>, Res<Occupancy>),
     mut rates: Local<ReactionRates>,
 ) {
     let stale = rates.rates.len() != kin.species.len() || rates.rates.first().is_some_and(|r| r.len() != lattice.len());
@@ -479,40 +559,13 @@ pub fn packet_reactions(
     for (total, n) in ledger.drained.iter_mut().zip(drained) {
         *total += n;
     }
-    settle(&mut bufs, &kin, &sites, &mut mload, &mut packets.weight, lattice.len());
-    let EventBuffers { gained, touched, touched_bits, .. } = &mut *bufs;
-    if touched.iter().all(Vec::is_empty) {
-        return;
-    }
-    let newly = Mutex::new(Vec::new());
-    let gained_ref = &*gained;
-    let sites_ref = &*sites;
-    let bits_ref = &*touched_bits;
-    cells.par_iter_mut().for_each(|(entity, cell, mut rec, mut load)| {
-        let v = cell.voxel as usize;
-        if bits_ref[v / 64] & (1u64 << (v % 64)) == 0 {
-            return;
-        }
-        if load.bound.iter().chain(&load.internalised).all(|&x| x == 0) {
-            newly.lock().expect("no panics while held").push(entity);
-        }
-        for (s, g) in gained_ref.iter().enumerate() {
-            load.bound[s] += g[v][0];
-            load.internalised[s] += g[v][1];
-        }
-        rec.free = sites_ref.free(v);
-    });
+    settle(&mut bufs, &kin, &sites, &mut gains, &mut active, &mut mload, &mut packets.weight, lattice.len());
     // Cells that took their first particles join the active set, in entity order.
-    let mut newly = newly.into_inner().expect("no panics while held");
-    newly.sort_unstable();
-    for e in newly {
-        active.0.insert(e);
-    }
-    for &v in touched.iter().flatten() {
-        for g in gained.iter_mut() {
-            g[v as usize] = [0, 0];
-        }
-        touched_bits[(v / 64) as usize] = 0;
+    let mut joined: Vec<(Entity, u32)> =
+        bufs.joined.iter().flatten().filter_map(|&v| occupancy.cell[v as usize].map(|e| (e, v))).collect();
+    joined.sort_unstable();
+    for (e, v) in joined {
+        active.insert(e, v);
     }
 }
 
@@ -523,9 +576,10 @@ struct SettleRange<'a> {
     /// One past its last voxel.
     hi: u32,
     bound: Vec<&'a mut [u64]>,
-    gained: Vec<&'a mut [[u64; 2]]>,
-    bits: &'a mut [u64],
-    touched: &'a mut Vec<u32>,
+    gained: Vec<&'a mut [[AtomicU64; 2]]>,
+    /// The range's words of the active cells' voxel bit set.
+    active: &'a mut [u64],
+    joined: &'a mut Vec<u32>,
     granted: &'a mut Vec<(u32, u64)>,
 }
 
@@ -536,46 +590,51 @@ struct SettleRange<'a> {
 /// order is the same for any thread count, and so is every settlement. Voxels do not share
 /// state, so the lattice is cut into [`SETTLE_RANGES`] ranges settled in parallel, each
 /// scanning only the chunks whose events reach it. The voxel's mirror of its cell's free
-/// receptors ([`CellSites`]) is the account binding draws on; what each cell gained is gathered
-/// per voxel and handed to the cells afterwards; granted requests leave their packets last.
+/// receptors ([`CellSites`]) is the account binding draws on; what each cell gained is added to
+/// its voxel's [`CellGains`], and the voxels of cells that gained their first particles are
+/// listed; granted requests leave their packets last.
+#[allow(clippy::too_many_arguments)]
 fn settle(
     bufs: &mut EventBuffers,
     kin: &Kinetics,
     sites: &CellSites,
+    gains: &mut CellGains,
+    active: &mut ActiveCells,
     mload: &mut MatrixLoad,
     weight: &mut [u64],
     n_voxels: usize,
 ) {
-    let EventBuffers { chunks, spans, used, gained, touched, granted, touched_bits } = bufs;
+    let EventBuffers { chunks, spans, used, joined, granted } = bufs;
     let ns = kin.species.len();
-    if gained.len() != ns || gained.first().is_some_and(|g| g.len() != n_voxels) {
-        *gained = vec![vec![[0u64; 2]; n_voxels]; ns];
+    if gains.per_species.len() != ns || gains.per_species.first().is_some_and(|g| g.len() != n_voxels) {
+        *gains = CellGains::new(ns, n_voxels);
     }
-    touched_bits.resize(n_voxels.div_ceil(64), 0);
+    active.voxels.resize(n_voxels.div_ceil(64), 0);
     let width = n_voxels.div_ceil(SETTLE_RANGES).next_multiple_of(64).max(64);
     let n_ranges = n_voxels.div_ceil(width);
-    touched.resize_with(n_ranges, Vec::new);
+    joined.resize_with(n_ranges, Vec::new);
     granted.resize_with(n_ranges, Vec::new);
     let mut bound_parts: Vec<_> = mload.bound.iter_mut().map(|b| b.chunks_mut(width)).collect();
-    let mut gained_parts: Vec<_> = gained.iter_mut().map(|g| g.chunks_mut(width)).collect();
-    let ranges: Vec<SettleRange> = touched_bits
+    let mut gained_parts: Vec<_> = gains.per_species.iter_mut().map(|g| g.chunks_mut(width)).collect();
+    let ranges: Vec<SettleRange> = active
+        .voxels
         .chunks_mut(width / 64)
-        .zip(touched.iter_mut().zip(granted.iter_mut()))
+        .zip(joined.iter_mut().zip(granted.iter_mut()))
         .enumerate()
-        .map(|(r, (bits, (touched, granted)))| SettleRange {
+        .map(|(r, (bits, (joined, granted)))| SettleRange {
             lo: (r * width) as u32,
             hi: ((r + 1) * width).min(n_voxels) as u32,
             bound: bound_parts.iter_mut().map(|it| it.next().expect("one slice per range")).collect(),
             gained: gained_parts.iter_mut().map(|it| it.next().expect("one slice per range")).collect(),
-            bits,
-            touched,
+            active: bits,
+            joined,
             granted,
         })
         .collect();
     let chunks = &chunks[..*used];
     let spans = &spans[..*used];
     ranges.into_par_iter().for_each(|mut r| {
-        r.touched.clear();
+        r.joined.clear();
         r.granted.clear();
         let (lo, hi) = (r.lo, r.hi);
         for (ev, &(first, last)) in chunks.iter().zip(spans) {
@@ -601,19 +660,19 @@ fn settle(
                 }
                 let s = e.species as usize;
                 let v = (e.voxel - lo) as usize;
-                // A voxel's first gain of this settlement (over every species) lists it once.
+                // A cell's first gain lists its voxel once: the cell joins the active set.
                 let touch = |r: &mut SettleRange| {
                     let (word, bit) = (v / 64, 1u64 << (v % 64));
-                    if r.bits[word] & bit == 0 {
-                        r.bits[word] |= bit;
-                        r.touched.push(e.voxel);
+                    if r.active[word] & bit == 0 {
+                        r.active[word] |= bit;
+                        r.joined.push(e.voxel);
                     }
                 };
                 match e.kind {
                     EventKind::Adsorption => r.bound[s][v] += e.count,
                     EventKind::Phagocytosis => {
                         touch(&mut r);
-                        r.gained[s][v][1] += e.count;
+                        *r.gained[s][v][1].get_mut() += e.count;
                     }
                     EventKind::Bind => {
                         let val = kin.species[s].valency as f64;
@@ -622,7 +681,7 @@ fn settle(
                         let accepted = e.count.min(room);
                         if accepted > 0 {
                             touch(&mut r);
-                            r.gained[s][v][0] += accepted;
+                            *r.gained[s][v][0].get_mut() += accepted;
                             sites.set_free(e.voxel as usize, free - accepted as f64 * val);
                             r.granted.push((e.index, accepted));
                         }
@@ -648,7 +707,7 @@ pub fn cell_kinetics(
     interval: Res<CellInterval>,
     sites: Res<CellSites>,
     releases: Res<Releases>,
-    (active, occupancy): (Res<ActiveCells>, Res<Occupancy>),
+    (active, occupancy, gains): (Res<ActiveCells>, Res<Occupancy>, Res<CellGains>),
     clock: Res<Clock>,
     seed: Res<Seed>,
     mut cells: Query<(&Cell, &mut Receptors, &mut CellLoad)>,
@@ -661,7 +720,7 @@ pub fn cell_kinetics(
     let ns = kin.species.len();
     // The active cells due at this step: those whose voxel is in this step's phase of the
     // interval (all of them at the last step).
-    if due.interval != m || occupancy.is_changed() || due.seen > active.0.len() {
+    if due.interval != m || occupancy.is_changed() || due.seen > active.cells.len() {
         *due = DueCells {
             interval: m,
             seen: 0,
@@ -669,14 +728,14 @@ pub fn cell_kinetics(
             sorted: vec![0; m as usize],
         };
     }
-    for &e in active.0.iter().skip(due.seen) {
+    for &e in active.cells.iter().skip(due.seen) {
         if let Ok((cell, ..)) = cells.get(e) {
             due.phases[(u64::from(cell.voxel) % m) as usize].insert(e);
         }
     }
     // Visiting a phase in entity order follows the cells' storage: re-sort a phase once it has
     // grown by an eighth since its last sort.
-    if active.0.len() > due.seen {
+    if active.cells.len() > due.seen {
         due.sorted.resize(m as usize, 0);
         let DueCells { phases, sorted, .. } = &mut *due;
         for (phase, done) in phases.iter_mut().zip(sorted.iter_mut()) {
@@ -686,10 +745,10 @@ pub fn cell_kinetics(
             }
         }
     }
-    due.seen = active.0.len();
+    due.seen = active.cells.len();
     let streams = Streams::new(seed, Domain::Binding);
     let phase = ((m - step % m) % m) as usize;
-    let list = if last_step { &active.0 } else { &due.phases[phase] };
+    let list = if last_step { &active.cells } else { &due.phases[phase] };
     cells.par_iter_many_unique_mut(list).for_each(|item| {
         let Ok((cell, mut rec, mut load)) = item else { return };
         if !last_step && (step + u64::from(cell.voxel)) % m != 0 {
@@ -699,12 +758,17 @@ pub fn cell_kinetics(
         if dt <= 0.0 {
             return;
         }
+        // The particles bound and taken up since the cell's last update, and the free receptors
+        // the settlements left it.
+        let v = cell.voxel as usize;
+        if gains.take_into(v, &mut load) {
+            rec.free = sites.free(v);
+        }
         let busy = (0..ns).any(|s| load.bound[s] > 0 || load.held[s] > 0) || rec.surface < rec.total;
         load.updated_at = now;
         if !busy {
             return;
         }
-        let v = cell.voxel as usize;
         let mut rng = streams.at(u64::from(cell.voxel) | (1 << 40), step);
         for s in 0..ns {
             let k = &kin.species[s];
@@ -864,6 +928,7 @@ pub fn install(world: &mut World, schedule: &mut Schedule, params: &Params) {
     world.init_resource::<Releases>();
     world.init_resource::<ActiveCells>();
     world.init_resource::<EventBuffers>();
+    world.insert_resource(CellGains::new(designs.len(), n));
     if !world.contains_resource::<LymphFlow>() {
         world.insert_resource(LymphFlow(vec![0.0; n]));
     }

@@ -214,6 +214,7 @@ pub fn reopen_run_file(sim: &mut Simulation, path: &std::path::Path, keep: u64) 
 
 /// Writes one snapshot of the world now.
 pub fn write_snapshot(world: &mut World) -> SimResult<()> {
+    crate::process::binding::hand_over_gains(world);
     let mut file = world.resource_mut::<OutputFile>().0.take().ok_or_else(|| SimError::Invariant {
         time_s: 0.0,
         step: 0,
