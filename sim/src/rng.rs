@@ -236,7 +236,13 @@ impl Stream {
         let (q, flip) = if p > 0.5 { (1.0 - p, true) } else { (p, false) };
         let k = if (n as f64) * q < BTRD_MIN_MEAN {
             let u = self.uniform();
-            binomial_inversion(u, n, (n as f64 * (-q).ln_1p()).exp(), q / (1.0 - q))
+            // No success when u <= (1 - q)^n, which is at least 1 - n q (Bernoulli's inequality):
+            // below that bound, less a margin for rounding, the mass needs no logarithm.
+            if u <= surely_below(1.0 - n as f64 * q) {
+                0
+            } else {
+                binomial_inversion(u, n, (n as f64 * (-q).ln_1p()).exp(), q / (1.0 - q))
+            }
         } else {
             self.btrd(n, q)
         };
@@ -365,7 +371,8 @@ fn stirling_tail(k: f64) -> f64 {
 impl Stream {
     /// Binomial deviate of `n` trials whose success probability is `1 - exp(-x)` (a first-order
     /// rate times a time step, `x >= 0`): the probability mass at zero is then exactly
-    /// `exp(-n x)`, so the common draw of no success costs one exponential and one uniform.
+    /// `exp(-n x)`, so the common draw of no success costs one uniform and at most one
+    /// exponential (none when the uniform falls below `1 - n x <= exp(-n x)`).
     /// Small means by inversion (BINV, Kachitvichyanukul and Schmeiser 1988) started from that
     /// mass, with ratio `p / (1 - p) = exp(x) - 1`; otherwise as [`Stream::binomial`].
     pub fn binomial_of_rate(&mut self, n: u64, x: f64) -> u64 {
@@ -376,13 +383,27 @@ impl Stream {
         if x > std::f64::consts::LN_2 || n as f64 * x >= BTRD_MIN_MEAN {
             return self.binomial(n, -(-x).exp_m1());
         }
-        let p0 = (-(n as f64) * x).exp();
         let u = self.uniform();
+        if u <= surely_below(1.0 - n as f64 * x) {
+            return 0;
+        }
+        let p0 = (-(n as f64) * x).exp();
         if u <= p0 {
             return 0;
         }
         binomial_inversion(u, n, p0, x.exp_m1())
     }
+}
+
+/// A lower bound `b` of the zero mass of an inversion (`1 - n x <= exp(-n x)`, or
+/// `1 - n q <= (1 - q)^n`, used where it is positive, so the exponent is below 1 in size),
+/// lowered by `2^-48`: the computed mass (`exp(-n x)` or `exp(n ln(1 - q))` from the C
+/// library) is within a few units of `2^-53` of the exact one, which is at least `b`, so a
+/// uniform at or below the result is at or below the computed mass too. The squeeze changes no
+/// draw; it spares the exponential (and logarithm) of most draws with a small mean.
+#[inline]
+fn surely_below(b: f64) -> f64 {
+    b - 16.0 * f64::EPSILON
 }
 
 /// Inversion of the binomial distribution function by sequential search from `k = 0` (BINV):
@@ -425,6 +446,33 @@ pub fn stochastic_round(x: f64, s: &mut Stream) -> u64 {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn the_squeeze_of_small_means_changes_no_draw() {
+        // The inversions without the squeeze (the zero mass computed every time) must give the
+        // same draw from the same stream, at means where the squeeze decides most draws.
+        for &(n, x) in &[(1u64, 1e-3), (17, 1e-4), (1000, 2e-5), (1000, 5e-4), (3, 0.2), (100_000, 1e-9)] {
+            for id in 0..20_000u64 {
+                let mut a = stream(5, Domain::Binding, id, n);
+                let mut b = a.clone();
+                let p0 = (-(n as f64) * x).exp();
+                let u = b.uniform();
+                let want = if u <= p0 { 0 } else { binomial_inversion(u, n, p0, x.exp_m1()) };
+                assert_eq!(a.binomial_of_rate(n, x), want, "n {n} x {x} stream {id}");
+            }
+        }
+        for &(n, p) in &[(17u64, 0.999_95f64), (40, 0.9999), (200, 1e-4), (5000, 1e-5)] {
+            for id in 0..20_000u64 {
+                let mut a = stream(6, Domain::Binding, id, n);
+                let mut b = a.clone();
+                let (q, flip) = if p > 0.5 { (1.0 - p, true) } else { (p, false) };
+                let u = b.uniform();
+                let k = binomial_inversion(u, n, (n as f64 * (-q).ln_1p()).exp(), q / (1.0 - q));
+                let want = if flip { n - k } else { k };
+                assert_eq!(a.binomial(n, p), want, "n {n} p {p} stream {id}");
+            }
+        }
+    }
 
     #[test]
     fn streams_depend_on_every_part_of_the_key() {

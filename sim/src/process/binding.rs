@@ -749,68 +749,77 @@ pub fn cell_kinetics(
     let streams = Streams::new(seed, Domain::Binding);
     let phase = ((m - step % m) % m) as usize;
     let list = if last_step { &active.cells } else { &due.phases[phase] };
-    cells.par_iter_many_unique_mut(list).for_each(|item| {
-        let Ok((cell, mut rec, mut load)) = item else { return };
-        if !last_step && (step + u64::from(cell.voxel)) % m != 0 {
-            return;
-        }
-        let dt = now - load.updated_at;
-        if dt <= 0.0 {
-            return;
-        }
-        // The particles bound and taken up since the cell's last update, and the free receptors
-        // the settlements left it.
-        let v = cell.voxel as usize;
-        if gains.take_into(v, &mut load) {
-            rec.free = sites.free(v);
-        }
-        let busy = (0..ns).any(|s| load.bound[s] > 0 || load.held[s] > 0) || rec.surface < rec.total;
-        load.updated_at = now;
-        if !busy {
-            return;
-        }
-        let mut rng = streams.at(u64::from(cell.voxel) | (1 << 40), step);
-        for s in 0..ns {
-            let k = &kin.species[s];
-            let val = f64::from(k.valency);
-            if load.bound[s] > 0 {
-                let koff = k.koff_eff(rec.total, params.cell_area, params.ligand_reach);
-                let total = koff + k.kint;
-                if total > 0.0 {
-                    let n = rng.binomial_of_rate(load.bound[s], total * dt);
-                    let n_int = rng.binomial(n, k.kint / total);
-                    let n_off = n - n_int;
-                    load.bound[s] -= n;
-                    load.internalised[s] += n_int;
-                    load.held[s] += n_off;
-                    rec.free += n_off as f64 * val;
-                    rec.surface -= n_int as f64 * val;
+    // The recycled fraction `1 - exp(-k_rec dt)` depends only on the time since a cell's last
+    // update, which most due cells share: each task keeps the last one it computed.
+    let recycled = |dt: f64| 1.0 - (-params.receptor_recycling * dt).exp();
+    cells.par_iter_many_unique_mut(list).for_each_init(
+        || (f64::NAN, 0.0),
+        |memo, item| {
+            let Ok((cell, mut rec, mut load)) = item else { return };
+            if !last_step && (step + u64::from(cell.voxel)) % m != 0 {
+                return;
+            }
+            let dt = now - load.updated_at;
+            if dt <= 0.0 {
+                return;
+            }
+            // The particles bound and taken up since the cell's last update, and the free receptors
+            // the settlements left it.
+            let v = cell.voxel as usize;
+            if gains.take_into(v, &mut load) {
+                rec.free = sites.free(v);
+            }
+            let busy = (0..ns).any(|s| load.bound[s] > 0 || load.held[s] > 0) || rec.surface < rec.total;
+            load.updated_at = now;
+            if !busy {
+                return;
+            }
+            let mut rng = streams.at(u64::from(cell.voxel) | (1 << 40), step);
+            for s in 0..ns {
+                let k = &kin.species[s];
+                let val = f64::from(k.valency);
+                if load.bound[s] > 0 {
+                    let koff = k.koff_eff(rec.total, params.cell_area, params.ligand_reach);
+                    let total = koff + k.kint;
+                    if total > 0.0 {
+                        let n = rng.binomial_of_rate(load.bound[s], total * dt);
+                        let n_int = rng.binomial(n, k.kint / total);
+                        let n_off = n - n_int;
+                        load.bound[s] -= n;
+                        load.internalised[s] += n_int;
+                        load.held[s] += n_off;
+                        rec.free += n_off as f64 * val;
+                        rec.surface -= n_int as f64 * val;
+                    }
+                }
+                if load.held[s] > 0 && k.target.is_some_and(|t| t == cell.kind) {
+                    let vacc = motion.a[s][v] * vol;
+                    if vacc > 0.0 && rec.free >= val {
+                        let rate = k.kon_eff * rec.free / vacc;
+                        let n = rng.binomial_of_rate(load.held[s], rate * dt);
+                        let n = n.min((rec.free / val).floor() as u64);
+                        load.held[s] -= n;
+                        load.bound[s] += n;
+                        rec.free -= n as f64 * val;
+                    }
+                }
+                if load.held[s] >= k.packet {
+                    let n = load.held[s] / k.packet;
+                    load.held[s] -= n * k.packet;
+                    releases.0.lock().expect("release list").push((cell.voxel, s as u8, n, k.packet));
                 }
             }
-            if load.held[s] > 0 && k.target.is_some_and(|t| t == cell.kind) {
-                let vacc = motion.a[s][v] * vol;
-                if vacc > 0.0 && rec.free >= val {
-                    let rate = k.kon_eff * rec.free / vacc;
-                    let n = rng.binomial_of_rate(load.held[s], rate * dt);
-                    let n = n.min((rec.free / val).floor() as u64);
-                    load.held[s] -= n;
-                    load.bound[s] += n;
-                    rec.free -= n as f64 * val;
+            if rec.surface < rec.total && params.receptor_recycling > 0.0 {
+                if memo.0 != dt {
+                    *memo = (dt, recycled(dt));
                 }
+                let back = (rec.total - rec.surface) * memo.1;
+                rec.surface += back;
+                rec.free += back;
             }
-            if load.held[s] >= k.packet {
-                let n = load.held[s] / k.packet;
-                load.held[s] -= n * k.packet;
-                releases.0.lock().expect("release list").push((cell.voxel, s as u8, n, k.packet));
-            }
-        }
-        if rec.surface < rec.total && params.receptor_recycling > 0.0 {
-            let back = (rec.total - rec.surface) * (1.0 - (-params.receptor_recycling * dt).exp());
-            rec.surface += back;
-            rec.free += back;
-        }
-        sites.set_free(v, rec.free);
-    });
+            sites.set_free(v, rec.free);
+        },
+    );
 }
 
 /// Desorption from the matrix, voxel by voxel: voxel `v` updates at the steps with

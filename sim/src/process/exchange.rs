@@ -82,14 +82,20 @@ pub struct WallExchange {
     pub return_rate: Vec<Vec<f64>>,
     /// Fraction of a packet carried to the next step, per species and site.
     pub carry: Vec<Vec<f64>>,
+    /// Per species: the sites (indices into `sites`, ascending) whose walls let it in
+    /// (`influx > 0`); the influx visits only these (elsewhere nothing enters and the carried
+    /// fraction stays as it is).
+    pub open: Vec<Vec<u32>>,
     /// Network revision and pressure solve the coefficients were computed for.
     pub seen: (u64, u64),
     /// Factor on the wall permeability of each species from an active route (a tissue-penetrating
     /// peptide, [`crate::process::interventions`]); missing entries are 1.
     pub route_factor: Vec<f64>,
-    /// Scratch of the influx, kept between steps: whole packets each site wants this step, and
-    /// the sites that get particles (site, particles, first new packet's row).
+    /// Scratch of the influx, kept between steps: whole packets each open site wants this step
+    /// and the fraction it carries on, and the sites that get particles (site, particles, first
+    /// new packet's row).
     wanted: Vec<u64>,
+    left_over: Vec<f64>,
     births: Vec<(u32, u64, usize)>,
 }
 
@@ -197,6 +203,11 @@ impl WallExchange {
                 }
             }
         }
+        self.open = self
+            .influx
+            .iter()
+            .map(|a| a.iter().enumerate().filter(|(_, a)| **a > 0.0).map(|(k, _)| k as u32).collect())
+            .collect();
     }
 }
 
@@ -293,12 +304,12 @@ pub fn exchange_system(
             pools.get_mut(s).give_back(*n);
         }
     }
-    // Influx: each site's expected packets with its carried fraction (in parallel: every site
-    // is its own), then the withdrawals from the plasma site by site in ascending order (the
-    // pool can run short), then the new packets written in place in parallel. Ids follow the
-    // site order and each site draws from its own stream, so the result is the same for any
-    // thread count.
-    let WallExchange { sites, influx, carry, wanted, births, .. } = &mut *ex;
+    // Influx: each open site's expected packets with its carried fraction (in parallel: every
+    // site is its own), then the withdrawals from the plasma site by site in ascending order
+    // (the pool can run short), then the new packets written in place in parallel. Ids follow
+    // the site order and each site draws from its own stream, so the result is the same for
+    // any thread count.
+    let WallExchange { sites, influx, carry, open, wanted, left_over, births, .. } = &mut *ex;
     const SITES_PER_TASK: usize = 512;
     for s in 0..ns {
         let w = designs.0[s].packet;
@@ -306,16 +317,20 @@ pub fn exchange_system(
         if cv <= 0.0 {
             continue;
         }
-        wanted.resize(sites.len(), 0);
-        wanted.par_iter_mut().zip(carry[s].par_iter_mut()).zip(influx[s].par_iter()).for_each(|((out, c), &a)| {
-            let expected = a * cv * dt / w as f64 + *c;
+        let (open, a, carry) = (&open[s], &influx[s], &mut carry[s]);
+        wanted.resize(open.len(), 0);
+        left_over.resize(open.len(), 0.0);
+        wanted.par_iter_mut().zip(left_over.par_iter_mut()).zip(open.par_iter()).for_each(|((out, f), &k)| {
+            let expected = a[k as usize] * cv * dt / w as f64 + carry[k as usize];
             let n = expected.floor();
-            *c = expected - n;
+            *f = expected - n;
             *out = if n < 1.0 { 0 } else { n as u64 };
         });
         births.clear();
         let mut rows = 0usize;
-        for (k, &n) in wanted.iter().enumerate() {
+        for ((&k, &n), &f) in open.iter().zip(wanted.iter()).zip(left_over.iter()) {
+            let k = k as usize;
+            carry[k] = f;
             if n == 0 {
                 continue;
             }
