@@ -109,8 +109,8 @@ fn main() {
         // The motion kernel alone, on the same packets and fields (BENCH_WHOLE_ONLY skips it).
         if std::env::var("BENCH_WHOLE_ONLY").is_err() {
             use interstice_sim::process::transport::{
-                Drift, FaceVelocity, MotionCache, MotionFields, TransportParams, move_packets, move_packets_packed,
-                substeps,
+                Drift, FaceVelocity, MIN_UNIFORM_RADIUS, MotionCache, MotionFields, TransportParams, move_packets,
+                move_packets_packed, substeps,
             };
             let fields = sim.world.resource::<MotionFields>().clone();
             let vel = sim.world.resource::<FaceVelocity>().clone();
@@ -125,7 +125,7 @@ fn main() {
             // The same packets with every packet on the fine sub-steps (no uniform marks).
             {
                 let mut fine = fields.clone();
-                fine.uniform.clear();
+                fine.uniform_radius.clear();
                 let fine = MotionCache::build(&l, &fine, &vel);
                 let mut p2 = sim.world.resource::<Packets>().clone();
                 let t2 = Instant::now();
@@ -156,7 +156,8 @@ fn main() {
                 let h = l.h;
                 for i in 0..p.len() {
                     let v = p.voxel[i] as usize;
-                    uni += usize::from(fields.uniform[0][v]);
+                    let radius = fields.uniform_radius[0][v];
+                    uni += usize::from(radius >= MIN_UNIFORM_RADIUS);
                     let [ii, jj, kk] = l.ijk(v);
                     let [nx, ny, _] = l.n;
                     let u = vel.x[ii + (nx + 1) * (jj + ny * kk)]
@@ -167,7 +168,8 @@ fn main() {
                     adv += usize::from(uv <= 0.25);
                     let d = fields.ad[0][v] / fields.a[0][v] / (h * h);
                     reach += usize::from((6.0 * d * 20.0).sqrt() <= 1.25);
-                    let ns = if fields.uniform[0][v] && uv <= 0.25 && (6.0 * d * 20.0).sqrt() + uv <= 1.25 {
+                    let budget = f64::from(radius) - 1.75;
+                    let ns = if radius >= MIN_UNIFORM_RADIUS && uv <= 0.25 && (6.0 * d * 20.0).sqrt() + uv <= budget {
                         1.0
                     } else {
                         substeps(d, u / h, 0.0, 20.0, 0.25) as f64

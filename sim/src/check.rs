@@ -211,16 +211,22 @@ fn particle_lines(p: &Params, out: &mut Vec<Derived>) {
             out.push(dd(sec, &format!("{name}: partition {region}"), part, "1", "accessible fraction of the fluid"));
         }
         let dmax = d_region[0].max(d_region[1]);
-        // A step of one sub-step keeps sqrt(6 D dt) within 3/4 of the largest move.
+        // A fine sub-step keeps sqrt(6 D dt) within 3/4 of the largest move.
         let lmax = p.transport.max_step_voxels * h;
         let dt1 = 0.5625 * lmax * lmax / (6.0 * dmax);
-        out.push(dd(sec, &format!("{name}: step without sub-steps"), dt1, "s", "largest dt walked in one sub-step"));
         out.push(dd(
             sec,
-            &format!("{name}: sub-steps per step"),
+            &format!("{name}: step without sub-steps"),
+            dt1,
+            "s",
+            "largest dt walked in one fine sub-step",
+        ));
+        out.push(dd(
+            sec,
+            &format!("{name}: fine sub-steps per step"),
             (p.run.time_step / dt1).ceil().max(1.0),
             "1",
-            "at the requested time step, where D is largest",
+            "where D is largest and varies within two voxels; uniform parts take longer steps",
         ));
         let k = &kin.species[s];
         if let Some(l) = &d.ligand {

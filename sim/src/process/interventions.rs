@@ -460,7 +460,8 @@ pub fn rebuild_motion(world: &mut World) {
         }
     }
     let l = world.resource::<Lattice>().clone();
-    fields.mark_uniform(&l);
+    let faces = world.resource::<TransportParams>().faces;
+    fields.mark_uniform(&l, faces);
     world.insert_resource(fields);
     if let Some(mut ex) = world.get_resource_mut::<WallExchange>() {
         ex.route_factor = route;
