@@ -109,7 +109,7 @@ fn main() {
         // The motion kernel alone, on the same packets and fields (BENCH_WHOLE_ONLY skips it).
         if std::env::var("BENCH_WHOLE_ONLY").is_err() {
             use interstice_sim::process::transport::{
-                Drift, FaceVelocity, MIN_UNIFORM_RADIUS, MotionCache, MotionFields, TransportParams, move_packets,
+                Drift, DualGrid, FaceVelocity, MotionCache, MotionFields, TransportParams, move_packets,
                 move_packets_packed, substeps,
             };
             let fields = sim.world.resource::<MotionFields>().clone();
@@ -156,9 +156,12 @@ fn main() {
                 let h = l.h;
                 for i in 0..p.len() {
                     let v = p.voxel[i] as usize;
-                    let radius = fields.uniform_radius[0][v];
-                    uni += usize::from(radius >= MIN_UNIFORM_RADIUS);
                     let [ii, jj, kk] = l.ijk(v);
+                    // The dual cell at the voxel's centre (the diagnostic's simplification).
+                    let dual = DualGrid { n: l.n };
+                    let centre = [ii as f64 + 0.5, jj as f64 + 0.5, kk as f64 + 0.5];
+                    let radius = fields.uniform_radius[0][dual.index(dual.cell(&centre))];
+                    uni += usize::from(radius >= 2);
                     let [nx, ny, _] = l.n;
                     let u = vel.x[ii + (nx + 1) * (jj + ny * kk)]
                         .abs()
@@ -168,8 +171,8 @@ fn main() {
                     adv += usize::from(uv <= 0.25);
                     let d = fields.ad[0][v] / fields.a[0][v] / (h * h);
                     reach += usize::from((6.0 * d * 20.0).sqrt() <= 1.25);
-                    let budget = f64::from(radius) - 1.75;
-                    let ns = if radius >= MIN_UNIFORM_RADIUS && uv <= 0.25 && (6.0 * d * 20.0).sqrt() + uv <= budget {
+                    let budget = (f64::from(radius) - 1.0).min(1.25);
+                    let ns = if uv <= 0.25 && (6.0 * d * 20.0).sqrt() + uv <= budget {
                         1.0
                     } else {
                         substeps(d, u / h, 0.0, 20.0, 0.25) as f64

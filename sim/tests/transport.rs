@@ -108,7 +108,7 @@ fn free_diffusion_msd(mark: bool) {
     if mark {
         f.mark_uniform(&l, FaceRule::Reflect);
         let widest = f.uniform_radius[0].iter().filter(|&&r| r == MAX_UNIFORM_RADIUS).count();
-        assert_eq!(widest, 64 * 64 * 64, "a uniform box with reflecting faces is uniform everywhere");
+        assert_eq!(widest, 65 * 65 * 65, "a uniform box with reflecting faces is uniform everywhere (dual grid)");
     }
     s.world.insert_resource(f);
     let n = 20_000;

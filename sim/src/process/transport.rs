@@ -28,7 +28,7 @@
 //! the simplified weak Euler scheme of Kloeden and Platen 1992, section 14.1, whose moves are
 //! bounded): the diffusive reach `sqrt(6 D h)` at most 3/4 of it, reach plus drift at most all
 //! of it, and the change of the fluid velocity across the voxel times `h` at most a tenth of a
-//! voxel edge ([`substeps`]). Where they are uniform (each voxel's uniform radius,
+//! voxel edge ([`substeps`]). Where they are uniform (the uniform radius of the dual grid,
 //! [`MotionFields::uniform_radius`], says how far) the diffusion needs no resolving: a step
 //! that moves the packet at most 1.25 voxel edges is one step of uniform increments, and longer
 //! ones are Gaussian sub-steps as long as the uniform region around the packet allows
@@ -89,22 +89,71 @@ pub struct MotionFields {
     pub fc: Vec<f64>,
     /// Largest `D` of each species, m^2/s.
     pub d_max: Vec<f64>,
-    /// Per species and voxel: its uniform radius `R`, the Chebyshev distance in voxels from it to
-    /// the nearest voxel whose `a D` or `a` differs from a face neighbour's (with absorbing faces,
-    /// also to the nearest voxel beyond a face; at most the smallest lattice dimension and
-    /// [`MAX_UNIFORM_RADIUS`]). `a D` and `a` are the same in every voxel within `R - 1` of it.
-    /// Empty: unknown (every packet takes the fine sub-steps). Set by
+    /// Per species, on the dual grid of the lattice, the uniform radius of each dual cell: the
+    /// Chebyshev distance, in dual cells, to the nearest dual cell whose eight corners do not all
+    /// have the same `a D` and `a` (0 for such a cell), capped by [`MAX_UNIFORM_RADIUS`], the
+    /// smallest lattice dimension and, with absorbing faces, the distance to the faces. A dual
+    /// cell is the box between eight voxel centres: [`DualGrid`] numbers them. Within a cell of
+    /// radius `R` and the `R - 1` layers of cells around it the trilinear interpolation of the
+    /// coefficients is constant. Empty: unknown (every packet takes the fine sub-steps). Set by
     /// [`MotionFields::mark_uniform`]; anything that changes `ad` or `a` afterwards must mark again.
     pub uniform_radius: Vec<Vec<u8>>,
 }
 
 /// Largest uniform radius recorded ([`MotionFields::uniform_radius`]): a packet in the middle of
-/// a uniform region moves up to `MAX_UNIFORM_RADIUS - 1.75` voxel edges in one sub-step.
+/// a uniform region moves up to `MAX_UNIFORM_RADIUS - 1` voxel edges in one sub-step.
 pub const MAX_UNIFORM_RADIUS: u8 = 32;
 
-/// Smallest uniform radius at which a packet takes the constant-coefficient sub-steps (moves up
-/// to `R - 1.75 >= 1.25` voxel edges); below it the fine sub-steps resolve the coefficients.
-pub const MIN_UNIFORM_RADIUS: u8 = 3;
+/// The dual grid of a lattice of `n` voxels: `(nx + 1)(ny + 1)(nz + 1)` dual cells, cell
+/// `(i, j, k)` spanning lattice coordinates (voxel edges from the origin) `[i - 1/2, i + 1/2]`
+/// along x and likewise along y and z: between the centres of voxels `i - 1` and `i`, the
+/// half cells at the faces reaching the outermost centres, beyond which the coefficients are
+/// extended as constants. Its corners are voxels `i - 1` and `i` along each axis, clamped into
+/// the lattice.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct DualGrid {
+    pub n: [usize; 3],
+}
+
+impl DualGrid {
+    /// Cells along each axis.
+    pub fn dims(self) -> [usize; 3] {
+        [self.n[0] + 1, self.n[1] + 1, self.n[2] + 1]
+    }
+
+    /// Number of dual cells.
+    pub fn len(self) -> usize {
+        self.dims().iter().product()
+    }
+
+    /// Whether the grid has no cells (never: a lattice has a voxel).
+    pub fn is_empty(self) -> bool {
+        self.len() == 0
+    }
+
+    /// Index of dual cell `q` (x fastest).
+    #[inline]
+    pub fn index(self, q: [usize; 3]) -> usize {
+        let [dx, dy, _] = self.dims();
+        q[0] + dx * (q[1] + dy * q[2])
+    }
+
+    /// The dual cell holding lattice coordinates `u`.
+    #[inline]
+    pub fn cell(self, u: &[f64; 3]) -> [usize; 3] {
+        std::array::from_fn(|a| ((u[a] + 0.5).max(0.0) as usize).min(self.n[a]))
+    }
+
+    /// Linear indices of the eight corner voxels of dual cell `q`.
+    pub fn corners(self, l: &Lattice, q: [usize; 3]) -> [usize; 8] {
+        let lo: [usize; 3] = std::array::from_fn(|a| q[a].saturating_sub(1).min(self.n[a] - 1));
+        let hi: [usize; 3] = std::array::from_fn(|a| q[a].min(self.n[a] - 1));
+        std::array::from_fn(|c| {
+            let pick = |a: usize, bit: usize| if c & bit == 0 { lo[a] } else { hi[a] };
+            l.idx(pick(0, 1), pick(1, 2), pick(2, 4))
+        })
+    }
+}
 
 /// Interstitial fluid velocity on voxel faces, m/s (Darcy flux density over face porosity).
 /// Face `i` of the x array lies at `x = origin + i h`: index `i + (nx + 1) (j + ny k)`; the y and z
@@ -189,37 +238,36 @@ impl MotionFields {
         }
     }
 
-    /// Computes the uniform radius of every voxel for each species
-    /// ([`MotionFields::uniform_radius`]): voxels that differ from a face neighbour get 0; the
-    /// Chebyshev distance to them is the minimum over them of the largest per-axis offset, found
-    /// by three separable passes (x, then y, then z) of `r(i) = min_j max(|i - j|, g(j))` along
-    /// each line; with absorbing `faces` it is capped by the distance to the nearest voxel beyond
-    /// a face (`min(c, n - 1 - c) + 1` along each axis).
+    /// Computes the uniform radius of every dual cell for each species
+    /// ([`MotionFields::uniform_radius`]): cells whose corners differ get 0; the Chebyshev
+    /// distance to them is the minimum over them of the largest per-axis offset, found by three
+    /// separable passes (x, then y, then z) of `r(i) = min_j max(|i - j|, r(j))` along each line;
+    /// with absorbing `faces` it is capped by `min(i, n - i)` along each axis, which keeps every
+    /// constant-coefficient move inside the lattice.
     pub fn mark_uniform(&mut self, l: &Lattice, faces: FaceRule) {
-        let n = l.len();
+        let dual = DualGrid { n: l.n };
+        let dims = dual.dims();
         let cap = MAX_UNIFORM_RADIUS.min(l.n.iter().copied().min().unwrap_or(1).min(255) as u8);
         self.uniform_radius = (0..self.ad.len())
             .map(|s| {
                 let (ad, a) = (&self.ad[s], &self.a[s]);
-                let mut r: Vec<u8> = (0..n)
+                let mut r: Vec<u8> = (0..dual.len())
                     .into_par_iter()
-                    .map(|v| {
-                        let differs = (0..3).any(|ax| {
-                            [false, true]
-                                .iter()
-                                .any(|&up| l.neighbour(v, ax, up).is_some_and(|w| ad[w] != ad[v] || a[w] != a[v]))
-                        });
-                        if differs { 0 } else { cap }
+                    .map(|q| {
+                        let q = [q % dims[0], (q / dims[0]) % dims[1], q / (dims[0] * dims[1])];
+                        let c = dual.corners(l, q);
+                        let same = c.iter().all(|&v| ad[v] == ad[c[0]] && a[v] == a[c[0]]);
+                        if same { cap } else { 0 }
                     })
                     .collect();
                 for ax in 0..3 {
-                    chebyshev_pass(l, ax, &mut r);
+                    chebyshev_pass(dims, ax, &mut r);
                 }
                 if faces == FaceRule::Absorb {
-                    r.par_iter_mut().enumerate().for_each(|(v, r)| {
-                        for (c, n) in l.ijk(v).into_iter().zip(l.n) {
-                            let to_face = c.min(n - 1 - c) + 1;
-                            *r = (*r).min(to_face.min(255) as u8);
+                    r.par_iter_mut().enumerate().for_each(|(q, r)| {
+                        let q = [q % dims[0], (q / dims[0]) % dims[1], q / (dims[0] * dims[1])];
+                        for (qa, n) in q.into_iter().zip(l.n) {
+                            *r = (*r).min(qa.min(n - qa).min(255) as u8);
                         }
                     });
                 }
@@ -229,15 +277,15 @@ impl MotionFields {
     }
 }
 
-/// One pass of the separable Chebyshev distance along axis `ax`: every line of `r` becomes
-/// `r(i) = min_j max(|i - j|, r(j))` (values are capped already, so a search stops at the best so
-/// far).
-fn chebyshev_pass(l: &Lattice, ax: usize, r: &mut [u8]) {
-    let stride = l.stride(ax);
-    let len = l.n[ax];
+/// One pass of the separable Chebyshev distance along axis `ax` of a grid of `dims` cells (x
+/// fastest): every line of `r` becomes `r(i) = min_j max(|i - j|, r(j))` (values are capped
+/// already, so a search stops at the best so far).
+fn chebyshev_pass(dims: [usize; 3], ax: usize, r: &mut [u8]) {
+    let stride = [1, dims[0], dims[0] * dims[1]][ax];
+    let len = dims[ax];
     let src = r.to_vec();
     r.par_iter_mut().enumerate().for_each(|(v, out)| {
-        let c = l.ijk(v)[ax];
+        let c = (v / stride) % len;
         let mut best = src[v];
         let mut k = 1usize;
         while k < best as usize {
@@ -270,14 +318,16 @@ pub struct MotionCache {
     /// Per voxel: fluid velocity on its six faces, voxel edges per second,
     /// `[x-, x+, y-, y+, z-, z+]`.
     faces: Vec<[f32; 6]>,
-    /// Per species and voxel: the diffusion coefficient `D = g / a` (voxel edges^2 per second)
-    /// where the voxel's uniform radius ([`MotionFields::uniform_radius`]) is at least 2 (its
-    /// interpolated coefficients are constant somewhere around it), else -1; empty when the
-    /// radii are unknown. The constant-coefficient sub-steps read only this, the radius and the
-    /// faces.
+    /// Per species and voxel: the diffusion coefficient `D = g / a` (voxel edges^2 per second),
+    /// for the constant-coefficient steps; empty when the uniform radii are unknown. Those steps
+    /// read only this, the radius and the faces.
     coarse: Vec<Vec<f64>>,
-    /// Per species and voxel: the uniform radius.
+    /// Per species and dual cell: the uniform radius ([`MotionFields::uniform_radius`]).
     radius: Vec<Vec<u8>>,
+    /// Per species and voxel: the smallest uniform radius `R` of the eight dual cells that share
+    /// its centre, so that anywhere in the voxel the budget ([`uniform_budget`]) is at least
+    /// `R - 1`: the single-step test reads this one byte instead of computing the budget.
+    voxel_radius: Vec<Vec<u8>>,
     fc: Vec<f64>,
     n: [usize; 3],
 }
@@ -322,18 +372,25 @@ impl MotionCache {
         });
         self.coarse.resize_with(fields.uniform_radius.len(), Vec::new);
         self.radius.clone_from(&fields.uniform_radius);
+        let dual = DualGrid { n: l.n };
+        self.voxel_radius.resize_with(fields.uniform_radius.len(), Vec::new);
+        for (s, out) in self.voxel_radius.iter_mut().enumerate() {
+            out.resize(n, 0);
+            let radius = &fields.uniform_radius[s];
+            out.par_iter_mut().enumerate().for_each(|(v, r)| {
+                let c = l.ijk(v);
+                *r = (0..8)
+                    .map(|k| radius[dual.index([c[0] + (k & 1), c[1] + ((k >> 1) & 1), c[2] + ((k >> 2) & 1)])])
+                    .min()
+                    .unwrap_or(0);
+            });
+        }
         for (s, out) in self.coarse.iter_mut().enumerate() {
-            out.resize(n, -1.0);
-            let (coef, radius) = (&self.coef[s], &fields.uniform_radius[s]);
+            out.resize(n, 0.0);
+            let coef = &self.coef[s];
             out.par_iter_mut().enumerate().for_each(|(v, d)| {
                 let [g, a] = coef[v];
-                *d = if radius[v] < 2 {
-                    -1.0
-                } else if a > 0.0 {
-                    (f64::from(g) / f64::from(a)).max(0.0)
-                } else {
-                    0.0
-                };
+                *d = if a > 0.0 { (f64::from(g) / f64::from(a)).max(0.0) } else { 0.0 };
             });
         }
         self.fc.clone_from(&fields.fc);
@@ -451,22 +508,20 @@ fn mirror(x: f64, hi: f64) -> f64 {
     x.clamp(0.0, hi)
 }
 
-/// How far a packet at lattice coordinates `u` in voxel `c` of uniform radius `r` can move
-/// seeing constant interpolated coefficients, voxel edges: the coefficients are the same in
-/// every voxel within `r - 1` of `c`, so their trilinear interpolation is constant in the box
-/// between those voxels' outermost centres, `[c - r + 1.5, c + r - 0.5]` along each axis; the
-/// budget is the distance from `u` to that box's nearest face (0 below `r = 2`).
+/// How far a packet at lattice coordinates `u` (in voxel `c`) can move seeing constant
+/// interpolated coefficients, voxel edges, from the uniform radii `r` of the dual grid `dual`: in its dual
+/// cell `q` of radius `R` and the `R - 1` layers around it the interpolation is constant, a box
+/// `[q - R + 1/2, q + R - 1/2]` along each axis; the budget is the distance from `u` to that
+/// box's nearest face, `R - 1/2 - max |u - q|` (at most 0 for `R = 0`).
 #[inline]
-fn uniform_budget(r: u8, c: &[usize; 3], u: &[f64; 3]) -> f64 {
-    if r < 2 {
-        return 0.0;
-    }
-    let r = f64::from(r);
-    (0..3).fold(f64::INFINITY, |m, ax| {
-        let lo = c[ax] as f64 - r + 1.5;
-        let hi = c[ax] as f64 + r - 0.5;
-        m.min(u[ax] - lo).min(hi - u[ax])
-    })
+fn uniform_budget(dual: DualGrid, r: &[u8], c: &[usize; 3], u: &[f64; 3]) -> f64 {
+    // The dual cell from the voxel `c` holding `u` (`Grid::cell`): the voxel's own index, or the
+    // next one in the voxel's upper half along each axis.
+    // (Without branches: which half a packet is in is a coin toss for the branch predictor.)
+    let f: [f64; 3] = std::array::from_fn(|a| u[a] - c[a] as f64);
+    let q: [usize; 3] = std::array::from_fn(|a| c[a] + usize::from(f[a] >= 0.5));
+    let off = f.iter().fold(0.0f64, |m, &f| m.max(f.min(1.0 - f)));
+    f64::from(r[dual.index(q)]) - 0.5 - off
 }
 
 /// Standard deviations of a Gaussian constant-coefficient sub-step's move kept within the
@@ -560,6 +615,7 @@ pub fn move_packets_packed(
     }
     assert_eq!(cache.n, l.n, "motion coefficients packed for another lattice");
     let grid = Grid::new(l.n);
+    let dual = DualGrid { n: l.n };
     let inv_h = 1.0 / l.h;
     // Everything below is in lattice units: lengths in voxel edges.
     let lmax = p.max_step_voxels;
@@ -599,17 +655,20 @@ pub fn move_packets_packed(
                 let mut t_left = dt;
                 let mut gone = false;
                 let uniform = cache.coarse.get(s).zip(cache.radius.get(s));
-                // One step of bounded uniform increments where the coefficients are uniform
-                // within two voxels of the starting voxel (uniform radius at least 3: their
-                // interpolation is then constant along any move of up to 1.25 voxel edges from
-                // a point of the voxel) and the whole step moves the packet at most that far
-                // for every draw (|xi| <= sqrt 3); the drift keeps the fine criteria (at most
-                // `lmax`, the velocity change bound). Exact for the diffusion: constant
-                // coefficients, no interpolation, no Ito drift.
-                if uniform_increments && let Some((dc, rc)) = uniform {
+                // One step of bounded uniform increments where the interpolated coefficients
+                // are constant around the packet as far as the whole step can move it for every
+                // draw (|xi| <= sqrt 3), and that is at most 1.25 voxel edges (a single step's
+                // uniform increments keep their excess kurtosis, so they stay short); the drift
+                // keeps the fine criteria (at most `lmax`, the velocity change bound). Exact for
+                // the diffusion: constant coefficients, no interpolation, no Ito drift. The
+                // distance is taken as `R - 1` from the voxel's smallest surrounding uniform
+                // radius (a lower bound of [`uniform_budget`] anywhere in the voxel).
+                if uniform_increments && let Some(vr) = cache.voxel_radius.get(s) {
                     let c0 = grid.cell(&u);
                     let v0 = grid.index(&c0);
-                    if rc[v0] >= MIN_UNIFORM_RADIUS {
+                    let budget = f64::from(vr[v0]) - 1.0;
+                    if budget > 0.0 {
+                        let dc = &cache.coarse[s];
                         let d0 = dc[v0];
                         let f0 = &cache.faces[v0];
                         let w0 = velocity(f0, &c0, &u);
@@ -617,7 +676,7 @@ pub fn move_packets_packed(
                         let change = velocity_change(f0) * fc.abs();
                         if umax * dt <= lmax
                             && change * dt <= VELOCITY_CHANGE_PER_SUBSTEP
-                            && (6.0 * d0 * dt).sqrt() + umax * dt <= 1.25
+                            && (6.0 * d0 * dt).sqrt() + umax * dt <= budget.min(1.25)
                         {
                             let amp = (2.0 * d0 * dt).sqrt();
                             let xi = rng.unit_variance_uniform3();
@@ -649,14 +708,15 @@ pub fn move_packets_packed(
                     let c = grid.cell(&u);
                     let v = grid.index(&c);
                     if let Some((dc, rc)) = uniform
-                        && rc[v] >= 2
+                        && let budget = uniform_budget(dual, rc, &c, &u)
+                        && budget > 0.0
                     {
                         let d = dc[v];
                         let f = &cache.faces[v];
                         let w = velocity(f, &c, &u);
                         let umax = w.iter().fold(0.0f64, |m, x| m.max(x.abs())) * fc.abs();
                         let change = velocity_change(f) * fc.abs();
-                        let h = gaussian_substep(d, umax, change, uniform_budget(rc[v], &c, &u), lmax, t_left);
+                        let h = gaussian_substep(d, umax, change, budget, lmax, t_left);
                         let fine =
                             if run_left > 0 { run_h } else { t_left / substeps(d, umax, change, t_left, lmax) as f64 };
                         if h > fine {
@@ -776,15 +836,10 @@ pub fn install(world: &mut World, schedule: &mut Schedule, params: &Params) {
 mod tests {
     use super::*;
 
-    /// The uniform radius against its definition, by brute force: the Chebyshev distance to the
-    /// nearest voxel that differs from a face neighbour, capped by the smallest lattice dimension
-    /// and, with absorbing faces, by the distance to the nearest voxel beyond a face.
-    #[test]
-    fn uniform_radius_is_the_chebyshev_distance_to_a_change() {
-        let l = Lattice::new([13, 9, 11], 1.0, [0.0; 3]);
-        let mut f = MotionFields::uniform(&l, 1.0, 1.0);
+    /// A small lattice with two boxes of a larger `a D` and one of a smaller `a` at random places.
+    fn blocky_fields(l: &Lattice) -> MotionFields {
+        let mut f = MotionFields::uniform(l, 1.0, 1.0);
         let mut r = crate::rng::stream(1, Domain::Tissue, 0, 0);
-        // Two boxes of a larger `a D` and one of a smaller `a`, at random places.
         for b in 0..3 {
             let lo: [usize; 3] = std::array::from_fn(|ax| (r.uniform() * l.n[ax] as f64) as usize);
             let hi: [usize; 3] = std::array::from_fn(|ax| (lo[ax] + 1 + (r.uniform() * 4.0) as usize).min(l.n[ax]));
@@ -799,37 +854,78 @@ mod tests {
                 }
             }
         }
-        let differs: Vec<usize> = (0..l.len())
-            .filter(|&v| {
-                (0..3).any(|ax| {
-                    [false, true].iter().any(|&up| {
-                        l.neighbour(v, ax, up).is_some_and(|w| f.ad[0][w] != f.ad[0][v] || f.a[0][w] != f.a[0][v])
-                    })
-                })
+        f
+    }
+
+    /// The uniform radius against its definition, by brute force: the Chebyshev distance over
+    /// the dual grid to the nearest dual cell whose corners differ, capped by the smallest
+    /// lattice dimension and, with absorbing faces, by `min(q, n - q)` along each axis.
+    #[test]
+    fn uniform_radius_is_the_chebyshev_distance_to_a_change() {
+        let l = Lattice::new([13, 9, 11], 1.0, [0.0; 3]);
+        let mut f = blocky_fields(&l);
+        let dual = DualGrid { n: l.n };
+        let dims = dual.dims();
+        let cells: Vec<[usize; 3]> =
+            (0..dual.len()).map(|q| [q % dims[0], (q / dims[0]) % dims[1], q / (dims[0] * dims[1])]).collect();
+        let varying: Vec<[usize; 3]> = cells
+            .iter()
+            .copied()
+            .filter(|&q| {
+                let c = dual.corners(&l, q);
+                c.iter().any(|&v| f.ad[0][v] != f.ad[0][c[0]] || f.a[0][v] != f.a[0][c[0]])
             })
             .collect();
-        assert!(!differs.is_empty());
+        assert!(!varying.is_empty() && varying.len() < cells.len() / 2);
         for faces in [FaceRule::Reflect, FaceRule::Absorb] {
             f.mark_uniform(&l, faces);
-            for v in 0..l.len() {
-                let c = l.ijk(v);
-                let mut want = differs
-                    .iter()
-                    .map(|&w| {
-                        let d = l.ijk(w);
-                        (0..3).map(|ax| c[ax].abs_diff(d[ax])).max().unwrap()
-                    })
-                    .min()
-                    .unwrap()
-                    .min(9);
+            for &q in &cells {
+                let mut want =
+                    varying.iter().map(|w| (0..3).map(|ax| q[ax].abs_diff(w[ax])).max().unwrap()).min().unwrap().min(9);
                 if faces == FaceRule::Absorb {
-                    for (&ci, &n) in c.iter().zip(&l.n) {
-                        want = want.min(ci.min(n - 1 - ci) + 1);
+                    for (&qa, &n) in q.iter().zip(&l.n) {
+                        want = want.min(qa.min(n - qa));
                     }
                 }
-                assert_eq!(usize::from(f.uniform_radius[0][v]), want, "voxel {c:?}, {faces:?}");
+                assert_eq!(usize::from(f.uniform_radius[0][dual.index(q)]), want, "dual cell {q:?}, {faces:?}");
             }
         }
+    }
+
+    /// Within its budget of a packet's position, the trilinear interpolation of the coefficients
+    /// (the fine path's [`Grid::interpolate`]) is the same everywhere (up to rounding): random positions, and
+    /// random points within the budget of each (Chebyshev distance, mirrored at the faces as the
+    /// kernel mirrors a move).
+    #[test]
+    fn coefficients_are_constant_within_the_budget() {
+        let l = Lattice::new([13, 9, 11], 1.0, [0.0; 3]);
+        let mut f = blocky_fields(&l);
+        f.mark_uniform(&l, FaceRule::Reflect);
+        let cache = MotionCache::build(&l, &f, &FaceVelocity::zero(&l));
+        let (grid, dual) = (Grid::new(l.n), DualGrid { n: l.n });
+        let mut r = crate::rng::stream(2, Domain::Tissue, 0, 0);
+        let mut tried = 0;
+        for _ in 0..20_000 {
+            let u: [f64; 3] = std::array::from_fn(|ax| r.uniform() * l.n[ax] as f64);
+            let budget = uniform_budget(dual, &f.uniform_radius[0], &grid.cell(&u), &u);
+            if budget <= 0.0 {
+                continue;
+            }
+            tried += 1;
+            let (g0, _, a0) = grid.interpolate(&cache.coef[0], &u);
+            for _ in 0..20 {
+                let p: [f64; 3] = std::array::from_fn(|ax| {
+                    let x = u[ax] + budget * (2.0 * r.uniform() - 1.0);
+                    mirror(x, l.n[ax] as f64)
+                });
+                let (g, _, a) = grid.interpolate(&cache.coef[0], &p);
+                // Equal up to the rounding of the interpolation weights (a change would be of
+                // order one here: the boxes double `a D` or halve `a`).
+                let same = |x: f64, y: f64| (x - y).abs() <= 1e-12 * y.abs();
+                assert!(same(g, g0) && same(a, a0), "at {p:?}, {budget} from {u:?}: ({g}, {a}) against ({g0}, {a0})");
+            }
+        }
+        assert!(tried > 5_000, "too few positions with a budget: {tried}");
     }
 
     /// A Gaussian constant-coefficient sub-step takes the whole rest of the step when it fits,
