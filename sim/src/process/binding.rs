@@ -230,6 +230,12 @@ impl ActiveCells {
         self.voxels[word] |= 1 << (v % 64);
         self.cells.insert(e);
     }
+
+    /// Whether the cell at voxel `v` is active.
+    #[inline]
+    pub fn has_voxel(&self, v: u32) -> bool {
+        self.voxels.get((v / 64) as usize).is_some_and(|w| w & (1 << (v % 64)) != 0)
+    }
 }
 
 /// Particles bound and taken up by each voxel's cell since that cell last took them into its
@@ -298,20 +304,6 @@ pub fn hand_over_gains(world: &mut World) {
             });
         });
     });
-}
-
-/// The active cells sorted by the phase of the kinetics interval their voxel falls in (cell
-/// `voxel` updates at the steps with `(step + voxel) % interval == 0`), so a step visits only
-/// the cells due. Kept by [`cell_kinetics`]: extended as cells join the active set, rebuilt when
-/// cells move, appear or die, or the interval changes.
-#[derive(Debug, Default)]
-pub struct DueCells {
-    interval: u64,
-    /// Active cells already sorted into phases.
-    seen: usize,
-    phases: Vec<EntityIndexSet>,
-    /// Length of each phase at its last sort into entity order.
-    sorted: Vec<usize>,
 }
 
 /// Particles gathered at a voxel and ready to leave as a packet: (voxel, species, particles).
@@ -707,11 +699,10 @@ pub fn cell_kinetics(
     interval: Res<CellInterval>,
     sites: Res<CellSites>,
     releases: Res<Releases>,
-    (active, occupancy, gains): (Res<ActiveCells>, Res<Occupancy>, Res<CellGains>),
+    (active, gains): (Res<ActiveCells>, Res<CellGains>),
     clock: Res<Clock>,
     seed: Res<Seed>,
     mut cells: Query<(&Cell, &mut Receptors, &mut CellLoad)>,
-    mut due: Local<DueCells>,
 ) {
     let now = clock.time + clock.dt;
     let vol = lattice.voxel_volume();
@@ -719,44 +710,18 @@ pub fn cell_kinetics(
     let last_step = clock.is_last_step();
     let ns = kin.species.len();
     // The active cells due at this step: those whose voxel is in this step's phase of the
-    // interval (all of them at the last step).
-    if due.interval != m || occupancy.is_changed() || due.seen > active.cells.len() {
-        *due = DueCells {
-            interval: m,
-            seen: 0,
-            phases: vec![EntityIndexSet::default(); m as usize],
-            sorted: vec![0; m as usize],
-        };
-    }
-    for &e in active.cells.iter().skip(due.seen) {
-        if let Ok((cell, ..)) = cells.get(e) {
-            due.phases[(u64::from(cell.voxel) % m) as usize].insert(e);
-        }
-    }
-    // Visiting a phase in entity order follows the cells' storage: re-sort a phase once it has
-    // grown by an eighth since its last sort.
-    if active.cells.len() > due.seen {
-        due.sorted.resize(m as usize, 0);
-        let DueCells { phases, sorted, .. } = &mut *due;
-        for (phase, done) in phases.iter_mut().zip(sorted.iter_mut()) {
-            if phase.len() > *done + *done / 8 {
-                phase.sort_unstable();
-                *done = phase.len();
-            }
-        }
-    }
-    due.seen = active.cells.len();
+    // interval (all of them at the last step). A pass over every cell in storage order, which
+    // skips the others on two cheap tests, costs less than visiting the due cells by entity
+    // (each such visit looks the entity up and waits on memory).
+    let phase = (m - step % m) % m;
     let streams = Streams::new(seed, Domain::Binding);
-    let phase = ((m - step % m) % m) as usize;
-    let list = if last_step { &active.cells } else { &due.phases[phase] };
     // The recycled fraction `1 - exp(-k_rec dt)` depends only on the time since a cell's last
     // update, which most due cells share: each task keeps the last one it computed.
     let recycled = |dt: f64| 1.0 - (-params.receptor_recycling * dt).exp();
-    cells.par_iter_many_unique_mut(list).for_each_init(
+    cells.par_iter_mut().for_each_init(
         || (f64::NAN, 0.0),
-        |memo, item| {
-            let Ok((cell, mut rec, mut load)) = item else { return };
-            if !last_step && (step + u64::from(cell.voxel)) % m != 0 {
+        |memo, (cell, mut rec, mut load)| {
+            if !active.has_voxel(cell.voxel) || (!last_step && u64::from(cell.voxel) % m != phase) {
                 return;
             }
             let dt = now - load.updated_at;
