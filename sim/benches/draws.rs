@@ -37,9 +37,11 @@ fn main() {
     // mean about 190), rare reactions (mean 0.02), and the small shares of the split; a cell's
     // split of its leaving particles between internalisation and release (p near 1).
     for (n, x) in [(1000u64, 2e-5), (1000, 5e-4), (1000, 5e-3), (1000, 0.015), (1000, 0.187), (10_000, 0.004)] {
-        println!("draw_binomial_of_rate_n{n}_mean{} {:.2} ns", n as f64 * x, time(|s| s.binomial_of_rate(n, x)));
+        let mean = format!("{}", n as f64 * x).replace('.', "p");
+        println!("draw_binomial_of_rate_n{n}_mean{mean} {:.2} ns", time(|s| s.binomial_of_rate(n, x)));
     }
     for (n, p) in [(5u64, 0.05), (12, 0.3), (40, 0.05), (40, 0.99995), (200, 0.05), (200, 0.95)] {
-        println!("draw_binomial_n{n}_p{p} {:.2} ns", time(|s| s.binomial(n, p)));
+        let prob = format!("{p}").replace('.', "p");
+        println!("draw_binomial_n{n}_p{prob} {:.2} ns", time(|s| s.binomial(n, p)));
     }
 }

@@ -9,9 +9,11 @@ use std::path::Path;
 use std::time::Instant;
 
 use interstice_sim::particles::Packets;
-use interstice_sim::process::accounting::Ledger;
 use interstice_sim::world::PhaseTimes;
 use interstice_sim::{LoadedScenario, Simulation};
+
+mod common;
+use common::{SCENARIO, fill};
 
 fn peak_rss_bytes() -> f64 {
     std::fs::read_to_string("/proc/self/status")
@@ -29,29 +31,6 @@ fn current_rss_bytes() -> f64 {
         .map_or(f64::NAN, |kb| kb * 1024.0)
 }
 
-const SCENARIO: &str = r#"
-[run]
-name = "bench"
-end_time_h = 1000.0
-time_step_s = 20.0
-snapshot_interval_h = 1000.0
-[lattice]
-shape = [128, 128, 128]
-voxel_um = 20.0
-[tumour]
-radius_um = 900.0
-[[particle]]
-name = "np50"
-hydrodynamic_radius_nm = 50.0
-surface_potential_mV = -10.0
-dose_particles = 1e10
-packet_particles = 1000.0
-[particle.ligand]
-kon_per_M_s = 1e5
-koff_per_s = 1e-4
-valency = 2
-"#;
-
 fn main() {
     let args: Vec<usize> = std::env::args().skip(1).filter_map(|a| a.parse::<f64>().ok()).map(|v| v as usize).collect();
     let sizes = if args.is_empty() { vec![100_000, 1_000_000, 10_000_000] } else { args };
@@ -67,18 +46,7 @@ fn main() {
     sim.step().expect("first step");
     for (k, &n) in sizes.iter().enumerate() {
         let before = current_rss_bytes();
-        {
-            let mut r = interstice_sim::rng::stream(1, interstice_sim::rng::Domain::Tissue, 77, n as u64);
-            let ext = l.extent();
-            let mut p = Packets::default();
-            for _ in 0..n {
-                p.push(&l, [r.uniform() * ext[0], r.uniform() * ext[1], r.uniform() * ext[2]], 0, 1000);
-            }
-            p.sort_by_voxel();
-            sim.world.insert_resource(p);
-            let mut ledger = sim.world.resource_mut::<Ledger>();
-            ledger.injected[0] = n as u64 * 1000;
-        }
+        fill(&mut sim, n);
         let after = current_rss_bytes();
         let steps = std::env::var("BENCH_STEPS").ok().and_then(|s| s.parse().ok()).unwrap_or(if n >= 10_000_000 {
             3

@@ -43,6 +43,8 @@ pub fn stream_key(seed: u64, domain: Domain, id: u64, step: u64) -> u64 {
 /// The generator of stream (seed, domain, id, step).
 #[inline]
 pub fn stream(seed: u64, domain: Domain, id: u64, step: u64) -> Stream {
+    #[cfg(feature = "draw-census")]
+    census::opened();
     Stream(stream_key(seed, domain, id, step))
 }
 
@@ -68,6 +70,8 @@ impl Streams {
     /// The stream of `id` at `step`.
     #[inline]
     pub fn at(self, id: u64, step: u64) -> Stream {
+        #[cfg(feature = "draw-census")]
+        census::opened();
         Stream(self.key(id, step))
     }
 }
@@ -227,6 +231,8 @@ impl Stream {
         if n == 0 || p <= 0.0 {
             return 0;
         }
+        #[cfg(feature = "draw-census")]
+        census::drawn(census::Draw::Probability(n, p));
         if p >= 1.0 {
             return n;
         }
@@ -379,8 +385,12 @@ impl Stream {
         if n == 0 || x <= 0.0 {
             return 0;
         }
+        #[cfg(feature = "draw-census")]
+        census::drawn(census::Draw::Rate(n, x));
         // p > 1/2 exactly when x > ln 2, and n p <= n x: the test needs no p.
         if x > std::f64::consts::LN_2 || n as f64 * x >= BTRD_MIN_MEAN {
+            #[cfg(feature = "draw-census")]
+            let _inner = census::Inner::enter();
             return self.binomial(n, -(-x).exp_m1());
         }
         let u = self.uniform();
@@ -434,6 +444,72 @@ fn binomial_inversion(mut u: f64, n: u64, p0: f64, r: f64) -> u64 {
         }
     }
     k
+}
+
+/// A census of the binomial draws and stream openings of the engine while recording (feature
+/// `draw-census`, for `benches/draw_census.rs`, which replays them to measure what the draws
+/// alone cost). Without the feature none of it is compiled.
+#[cfg(feature = "draw-census")]
+pub mod census {
+    use std::cell::Cell;
+    use std::sync::Mutex;
+    use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};
+
+    /// One binomial draw: `binomial_of_rate(n, x)` or `binomial(n, p)`.
+    #[derive(Debug, Clone, Copy, PartialEq)]
+    pub enum Draw {
+        Rate(u64, f64),
+        Probability(u64, f64),
+    }
+
+    static RECORDING: AtomicBool = AtomicBool::new(false);
+    static DRAWS: Mutex<Vec<Draw>> = Mutex::new(Vec::new());
+    static OPENED: AtomicU64 = AtomicU64::new(0);
+    thread_local! {
+        /// Inside a `binomial_of_rate` that calls `binomial`: that inner call is the same draw.
+        static INNER: Cell<bool> = const { Cell::new(false) };
+    }
+
+    /// Starts recording (clears what was recorded).
+    pub fn start() {
+        DRAWS.lock().expect("census").clear();
+        OPENED.store(0, Ordering::Relaxed);
+        RECORDING.store(true, Ordering::Relaxed);
+    }
+
+    /// Stops recording; returns the draws (in no particular order) and the streams opened.
+    pub fn stop() -> (Vec<Draw>, u64) {
+        RECORDING.store(false, Ordering::Relaxed);
+        (std::mem::take(&mut *DRAWS.lock().expect("census")), OPENED.load(Ordering::Relaxed))
+    }
+
+    pub(super) fn opened() {
+        if RECORDING.load(Ordering::Relaxed) {
+            OPENED.fetch_add(1, Ordering::Relaxed);
+        }
+    }
+
+    pub(super) fn drawn(d: Draw) {
+        if RECORDING.load(Ordering::Relaxed) && !INNER.with(Cell::get) {
+            DRAWS.lock().expect("census").push(d);
+        }
+    }
+
+    /// Marks the calls below as part of an outer draw until dropped.
+    pub(super) struct Inner;
+
+    impl Inner {
+        pub(super) fn enter() -> Self {
+            INNER.with(|f| f.set(true));
+            Inner
+        }
+    }
+
+    impl Drop for Inner {
+        fn drop(&mut self) {
+            INNER.with(|f| f.set(false));
+        }
+    }
 }
 
 /// Stochastic rounding: `floor(x)` plus one with probability `frac(x)`; unbiased.
