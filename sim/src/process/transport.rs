@@ -13,7 +13,9 @@
 //! uniform where `D` and `a` vary (the well-mixed condition: Thomson 1987, J Fluid Mech 180:529;
 //! for discontinuous coefficients LaBolle, Fogg and Tompson 1996, Water Resour Res 32:583).
 //! `a D` and `a` are interpolated trilinearly between voxel centres, so a jump between voxels is
-//! seen as a steep but continuous ramp the sub-steps resolve; `u` is interpolated linearly
+//! seen as a steep but continuous ramp the sub-steps resolve (a well-mixed cloud keeps a density
+//! proportional to that ramp: beside a jump in `a` a voxel holds `(a[i-1] + 6 a[i] + a[i+1]) / 8`
+//! along the jump's axis, not `a[i]`); `u` is interpolated linearly
 //! between the faces of the voxel along each axis (Pollock 1988, Ground Water 26:743), which
 //! keeps it divergence-free.
 //!
