@@ -11,8 +11,8 @@
 //! loads, the time of its last kinetics update, whether it is active); matrix adsorption; the
 //! ledger; the plasma pools (their dose schedules are a function of the scenario, and what a step
 //! receives of them a function of the restored clock: nothing of theirs needs saving); the carried fractions of packets at each wall site; the matrix
-//! fields; the interstitial pressure and its solve count. A process that adds dynamic state adds
-//! it here.
+//! fields; the interstitial pressure and its solve count; the oxygen field with its cell states,
+//! solve record and whether a solve was due. A process that adds dynamic state adds it here.
 
 use std::path::{Path, PathBuf};
 
@@ -24,6 +24,7 @@ use crate::particles::Packets;
 use crate::process::accounting::Ledger;
 use crate::process::binding::{ActiveCells, CellGains, CellSites, MatrixLoad};
 use crate::process::exchange::WallExchange;
+use crate::process::oxygen::{Oxygen, OxygenReport};
 use crate::process::plasma::PlasmaPools;
 use crate::tissue::{Cell, CellKind, CellLoad, MAX_SPECIES, Matrix, Occupancy, Receptors};
 use crate::world::Clock;
@@ -163,6 +164,17 @@ fn save(world: &mut World, f: &File, fp: &str) -> hdf5::Result<()> {
         let g = f.create_group("pressure")?;
         attr(&g, "solves", fl.solves)?;
         put(&g, "pressure", &fl.pressure.data)?;
+    }
+    if let Some(ox) = world.get_resource::<Oxygen>() {
+        let g = f.create_group("oxygen")?;
+        attr(&g, "solves", ox.solves)?;
+        attr(&g, "current", u8::from(crate::process::oxygen::is_current(world)))?;
+        attr(&g, "newton_iterations", ox.report.newton_iterations as u64)?;
+        attr(&g, "linear_iterations", ox.report.linear_iterations as u64)?;
+        attr(&g, "last_change", ox.report.last_change)?;
+        put(&g, "concentration", &ox.concentration.data)?;
+        put(&g, "kinds", &ox.kinds.data)?;
+        put(&g, "states", &ox.states.data)?;
     }
     Ok(())
 }
@@ -344,6 +356,25 @@ fn load(world: &mut World, f: &File) -> hdf5::Result<u64> {
             }
             world.resource_mut::<crate::process::pressure::InterstitialFluid>().solves = solves;
         }
+    }
+    // Oxygen: the saved field, cell states and solve record, and whether a solve was due (the
+    // restored cells and network would otherwise look changed and trigger one the uninterrupted
+    // run never made, from a different starting field).
+    if let (Ok(g), true) = (f.group("oxygen"), world.contains_resource::<Oxygen>()) {
+        let current: u8 = read_attr(&g, "current")?;
+        {
+            let mut ox = world.resource_mut::<Oxygen>();
+            ox.solves = read_attr(&g, "solves")?;
+            ox.report = OxygenReport {
+                newton_iterations: read_attr::<u64>(&g, "newton_iterations")? as usize,
+                linear_iterations: read_attr::<u64>(&g, "linear_iterations")? as usize,
+                last_change: read_attr(&g, "last_change")?,
+            };
+            ox.concentration.data = get(&g, "concentration")?;
+            ox.kinds.data = get(&g, "kinds")?;
+            ox.states.data = get(&g, "states")?;
+        }
+        crate::process::oxygen::restored(world, current == 1);
     }
     // Wall exchange: coefficients re-derived from the restored pressure, then the carried fractions.
     if world.contains_resource::<WallExchange>() {

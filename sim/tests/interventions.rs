@@ -3,14 +3,16 @@
 
 use std::path::Path;
 
+use bevy_ecs::change_detection::DetectChangesMut;
 use interstice_sim::particles::Packets;
 use interstice_sim::process::accounting::Ledger;
 use interstice_sim::process::exchange::{WallExchange, patlak};
 use interstice_sim::process::interventions::Interventions;
+use interstice_sim::process::oxygen::{self, Oxygen};
 use interstice_sim::process::plasma::PlasmaPools;
 use interstice_sim::process::pressure::InterstitialFluid;
 use interstice_sim::process::transport::MotionFields;
-use interstice_sim::tissue::{CellLoad, Matrix, Regions, TUMOUR};
+use interstice_sim::tissue::{CellLoad, Matrix, Occupancy, Regions, TUMOUR};
 use interstice_sim::vessels::flow::BloodFlow;
 use interstice_sim::vessels::network::Network;
 use interstice_sim::world::Clock;
@@ -306,12 +308,10 @@ fn bad_interventions_get_clear_messages() {
     }
 }
 
-#[test]
-fn a_run_with_interventions_resumed_from_a_checkpoint_continues_exactly() {
-    // Every effect is recomputed from the values at the start of the run at its last update time,
-    // so a world rebuilt from the scenario and restored from a checkpoint taken mid-treatment
-    // continues exactly as the uninterrupted run.
-    let text = format!(
+/// The small network with three interventions: matrix degradation from 0.25 h, normalisation
+/// (which closes immature vessels) from 0.5 h and a peptide from 0.75 to 1.5 h.
+fn treated_network() -> String {
+    format!(
         "{}{}",
         SMALL_NETWORK.replace("time_step_s = 30.0", "time_step_s = 60.0"),
         r#"
@@ -335,7 +335,15 @@ duration_h = 0.75
 [intervention.peptide]
 particle = "np"
 "#
-    );
+    )
+}
+
+#[test]
+fn a_run_with_interventions_resumed_from_a_checkpoint_continues_exactly() {
+    // Every effect is recomputed from the values at the start of the run at its last update time,
+    // so a world rebuilt from the scenario and restored from a checkpoint taken mid-treatment
+    // continues exactly as the uninterrupted run.
+    let text = treated_network();
     let mut a = sim(&text);
     run_to(&mut a, 7200.0);
     let (_, mut b) = restarted(&text, &text, 3600.0, 7200.0);
@@ -346,4 +354,40 @@ particle = "np"
     let (na, nb) = (a.world.resource::<Network>(), b.world.resource::<Network>());
     assert!(na.segments == nb.segments && na.closed == nb.closed, "networks differ after the restart");
     assert!(na.closed.iter().any(|&c| c), "the normalisation closed immature vessels");
+}
+
+#[test]
+fn a_run_with_oxygen_resumed_mid_treatment_continues_exactly() {
+    // As above with the oxygen process on: the normalisation closes vessels after the checkpoint
+    // (re-solves of the oxygen field follow), and the resumed run's oxygen field, cell states and
+    // solve count equal the uninterrupted run's bit for bit. The checkpoint at 1 h falls between
+    // two normalisation updates (every 20 min from 0.5 h).
+    let text = format!("{}\n[oxygen]\nenabled = true\n", treated_network());
+    let mut a = sim(&text);
+    run_to(&mut a, 7200.0);
+    let (_, mut b) = restarted(&text, &text, 3600.0, 7200.0);
+    assert_eq!(state(&mut a), state(&mut b));
+    let (oa, ob) = (a.world.resource::<Oxygen>(), b.world.resource::<Oxygen>());
+    assert!(oa.solves > 1, "the normalisation made the oxygen field re-solve ({} solves)", oa.solves);
+    assert_eq!(oa.solves, ob.solves, "solve counts");
+    assert_eq!(oa.report, ob.report, "last solve reports");
+    assert!(oa.concentration.data == ob.concentration.data, "oxygen fields differ after the restart");
+    assert_eq!(oa.states.data, ob.states.data, "cell states");
+    // A solve that was due at the checkpoint (here: the cells marked changed after the step) is
+    // still due after the restart, and both runs make it from the same field.
+    let dir = tempfile::tempdir().unwrap();
+    let ck = dir.path().join("due.ckpt.h5");
+    let mut c = sim(&text);
+    run_to(&mut c, 3600.0);
+    c.world.resource_mut::<Occupancy>().set_changed();
+    assert!(!oxygen::is_current(&c.world));
+    interstice_sim::checkpoint::write(&mut c.world, &ck, "same").unwrap();
+    let mut d = sim(&text);
+    interstice_sim::checkpoint::read(&mut d.world, &ck, "same").unwrap();
+    assert!(!oxygen::is_current(&d.world), "the due solve was lost in the restart");
+    run_to(&mut c, 7200.0);
+    run_to(&mut d, 7200.0);
+    let (oc, od) = (c.world.resource::<Oxygen>(), d.world.resource::<Oxygen>());
+    assert_eq!((oc.solves, oc.report), (od.solves, od.report));
+    assert!(oc.concentration.data == od.concentration.data && oc.states.data == od.states.data);
 }

@@ -364,6 +364,22 @@ fn marks(world: &World) -> Option<(u64, Tick)> {
     Some((rev, world.get_resource_ref::<Occupancy>()?.last_changed()))
 }
 
+/// Whether the oxygen field is solved for the world's current network and cells (false while a
+/// change waits for the next step's solve). A checkpoint keeps this.
+pub fn is_current(world: &World) -> bool {
+    world.get_resource::<OxygenState>().is_some_and(|st| st.seen == marks(world))
+}
+
+/// After a checkpoint restored the oxygen field into a rebuilt world: marks it solved for the
+/// restored network and cells if it was `current` at the checkpoint, else leaves a solve due at
+/// the next step, as in the uninterrupted run (which would solve from the same field).
+pub fn restored(world: &mut World, current: bool) {
+    let seen = if current { marks(world) } else { None };
+    if let Some(mut st) = world.get_resource_mut::<OxygenState>() {
+        st.seen = seen;
+    }
+}
+
 /// Solves again when the network or the cells changed.
 pub fn update_oxygen(world: &mut World) {
     if world.resource::<OxygenState>().seen == marks(world) {
