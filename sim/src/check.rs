@@ -226,7 +226,7 @@ fn particle_lines(p: &Params, out: &mut Vec<Derived>) {
             &format!("{name}: fine sub-steps per step"),
             (p.run.time_step / dt1).ceil().max(1.0),
             "1",
-            "where D is largest and varies within two voxels; uniform parts take longer steps",
+            "where D is largest and varies around the packet; uniform parts take longer steps",
         ));
         let k = &kin.species[s];
         if let Some(l) = &d.ligand {

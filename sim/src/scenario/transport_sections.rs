@@ -50,7 +50,7 @@ section! {
         hindrance: MatrixHindrance = MatrixHindrance::OgstonBrinkman;
         /// Steric partition into the accessible fluid (Ogston 1958): true or false.
         steric_partition: bool = true;
-        /// Largest move of a packet in one fine sub-step (where the motion coefficients vary within two voxels), in voxel edges.
+        /// Largest move of a packet in one fine sub-step (taken where the interpolated motion coefficients vary around it), in voxel edges.
         max_step_voxels: f64 = 0.25, Check::above_upto(0.0, 1.0);
         /// Random increments: "uniform" or "gaussian".
         increments: Increments = Increments::Uniform;
