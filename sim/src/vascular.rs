@@ -47,4 +47,27 @@ impl WallFluid {
         }
         WallFluid { lp_s, drive }
     }
+
+    /// These coefficients with the walls' pores scaled by `factor` per voxel at a fixed pore area
+    /// fraction: `Lp = gamma r^2 / (8 mu L)` (pore theory) scales with the factor squared, and so
+    /// do both sums (the oncotic terms are kept).
+    pub fn with_pore_factors(&self, factor: &[f64]) -> WallFluid {
+        let mut out = self.clone();
+        for ((ls, dr), &f) in out.lp_s.data.iter_mut().zip(out.drive.data.iter_mut()).zip(factor) {
+            *ls *= f * f;
+            *dr *= f * f;
+        }
+        out
+    }
+}
+
+/// Factor on the pore radius of the continuum model's walls per voxel (1 where nothing acts), set
+/// by vessel normalisation and heating ([`crate::process::interventions`]); the pore area fraction
+/// stays as at the start, so the wall's hydraulic conductivity follows as the factor squared
+/// ([`WallFluid::with_pore_factors`]). `revision` counts the changes (the wall exchange rebuilds
+/// its patches when it moves).
+#[derive(Resource, Debug, Clone, Default, PartialEq)]
+pub struct ContinuumPores {
+    pub factor: Vec<f64>,
+    pub revision: u64,
 }

@@ -13,8 +13,10 @@ use interstice_sim::process::plasma::PlasmaPools;
 use interstice_sim::process::pressure::InterstitialFluid;
 use interstice_sim::process::transport::MotionFields;
 use interstice_sim::tissue::{CellLoad, Matrix, Occupancy, Regions, TUMOUR};
+use interstice_sim::vascular::{ContinuumPores, WallFluid};
 use interstice_sim::vessels::flow::BloodFlow;
 use interstice_sim::vessels::network::Network;
+use interstice_sim::vessels::pore::{BODY_TEMPERATURE, stokes_einstein, wall_coefficients};
 use interstice_sim::world::Clock;
 use interstice_sim::{LoadedScenario, Simulation};
 
@@ -120,15 +122,8 @@ fn normalisation_shrinks_pores_as_its_kinetics_imply_and_lowers_tumour_pressure(
     let segs = tumour_segments(&s);
     assert!(!segs.is_empty());
     let net0 = s.world.resource::<Network>().clone();
-    let regions = s.world.resource::<Regions>().region.data.clone();
-    let tumour_p = |s: &Simulation| {
-        let p = &s.world.resource::<InterstitialFluid>().pressure.data;
-        let (sum, n) =
-            regions.iter().zip(p).filter(|(r, _)| **r == TUMOUR).fold((0.0, 0), |a, (_, p)| (a.0 + p, a.1 + 1));
-        sum / n as f64
-    };
     run_to(&mut s, 3600.0);
-    let p_before = tumour_p(&s);
+    let p_before = tumour_pressure(&s);
     run_to(&mut s, 5.0 * 3600.0);
     // r(t) = r_n + (r_0 - r_n) exp(-(t - t0)/tau) for pores above r_n; the last update was at 5 h.
     let f = (-4.0f64 / 2.0).exp();
@@ -146,7 +141,7 @@ fn normalisation_shrinks_pores_as_its_kinetics_imply_and_lowers_tumour_pressure(
     assert!(pruned > 0, "some immature vessels were pruned");
     // Tighter walls leak less fluid: the high tumour pressure falls (Jain 2005, common practice).
     run_to(&mut s, 5.0 * 3600.0 + 240.0);
-    let p_after = tumour_p(&s);
+    let p_after = tumour_pressure(&s);
     assert!(p_after < 0.9 * p_before, "tumour pressure {p_before} -> {p_after} Pa");
 }
 
@@ -177,6 +172,111 @@ fn heating_widens_pores_and_raises_flow_then_both_return() {
         assert!((b.pore_radius / a.pore_radius - 1.0).abs() < 1e-3);
     }
     assert!((s.world.resource::<BloodFlow>().total_inflow / q0 - 1.0).abs() < 5e-3);
+}
+
+/// Mean interstitial pressure over the tumour's voxels, Pa.
+fn tumour_pressure(s: &Simulation) -> f64 {
+    let regions = &s.world.resource::<Regions>().region.data;
+    let p = &s.world.resource::<InterstitialFluid>().pressure.data;
+    let (sum, n) = regions.iter().zip(p).filter(|(r, _)| **r == TUMOUR).fold((0.0, 0), |a, (_, p)| (a.0 + p, a.1 + 1));
+    sum / n as f64
+}
+
+#[test]
+fn normalisation_of_continuum_vessels_shrinks_pores_and_conductivity_and_lowers_tumour_pressure() {
+    // Continuum vessels (one uniform wall per region): the tumour's 200 nm pores relax as
+    // r(t) = r_n + (r_0 - r_n) exp(-(t - t0)/tau), voxel by voxel in the region; at the walls'
+    // pore area fraction Lp = gamma r^2 / (8 mu L) (pore theory) falls as (r / r_0)^2, and the
+    // particles' wall permeability and reflection follow the pores (the pore theory of
+    // vessels::pore, tested against its references there).
+    let text = format!(
+        "{TISSUE}\n[[intervention]]\nname = \"norm\"\nstart_h = 1.0\n[intervention.normalisation]\n\
+         normal_pore_radius_nm = 20.0\ntime_constant_h = 2.0\nupdate_interval_min = 30.0\n"
+    );
+    let mut s = sim(&text);
+    let regions = s.world.resource::<Regions>().region.data.clone();
+    let v_t = regions.iter().position(|&r| r == TUMOUR).unwrap();
+    let v_h = regions.iter().position(|&r| r != TUMOUR).unwrap();
+    let wall0 = s.world.resource::<WallFluid>().clone();
+    let patch = |s: &Simulation, v: usize| {
+        s.world.resource::<WallExchange>().patches.iter().find(|p| p.voxel as usize == v).expect("a wall patch").clone()
+    };
+    let (t0, h0) = (patch(&s, v_t), patch(&s, v_h));
+    run_to(&mut s, 3600.0);
+    let p_before = tumour_pressure(&s);
+    run_to(&mut s, 5.0 * 3600.0);
+    s.step().unwrap(); // the exchange re-derives its patches at the start of a step
+    let c = s.params.continuum_vessels.clone();
+    let r0 = c.pore_radius[1];
+    assert!((r0 - 200e-9).abs() < 1e-15, "the tumour pore radius the scenario gives");
+    let r = 20e-9 + (r0 - 20e-9) * (-4.0f64 / 2.0).exp();
+    let f = s.world.resource::<ContinuumPores>().factor.clone();
+    assert!((f[v_t] - r / r0).abs() < 1e-12, "pore factor {} vs {}", f[v_t], r / r0);
+    assert_eq!(f[v_h], 1.0, "host walls untouched (the intervention's region is the tumour)");
+    let wall = s.world.resource::<WallFluid>();
+    let lp_ratio = wall.lp_s.data[v_t] / wall0.lp_s.data[v_t];
+    assert!((lp_ratio - (r / r0).powi(2)).abs() < 1e-12, "Lp S ratio {lp_ratio}");
+    assert_eq!(wall.lp_s.data[v_h], wall0.lp_s.data[v_h]);
+    // The particles' wall coefficients at the new pore radius, same pore area fraction.
+    let p = &s.params;
+    let mu = p.blood.plasma_viscosity;
+    let gamma = 8.0 * mu * c.wall_thickness * c.wall_conductivity[1] / (r0 * r0);
+    let radius = p.designs.0[0].radius;
+    let d0 = stokes_einstein(radius, mu, BODY_TEMPERATURE);
+    let w = wall_coefficients(r, gamma, c.wall_thickness, radius, d0, mu, p.network.hindrance);
+    let area = c.surface_per_volume[1] * s.lattice().voxel_volume();
+    let (t1, h1) = (patch(&s, v_t), patch(&s, v_h));
+    assert!((t1.ps[0] / (w.permeability * area) - 1.0).abs() < 1e-12, "PS {} vs {}", t1.ps[0], w.permeability * area);
+    assert!((t1.pass[0] - (1.0 - w.reflection)).abs() < 1e-12);
+    assert!(t1.ps[0] < t0.ps[0] && (t1.lp_s / t0.lp_s - lp_ratio).abs() < 1e-12);
+    assert_eq!((h1.ps[0], h1.lp_s), (h0.ps[0], h0.lp_s));
+    // Tighter walls leak less fluid: the high tumour pressure falls (Jain 2005, common practice).
+    let p_after = tumour_pressure(&s);
+    assert!(p_after < 0.9 * p_before, "tumour pressure {p_before} -> {p_after} Pa");
+}
+
+#[test]
+fn heating_widens_the_pores_of_continuum_vessels_then_they_return() {
+    let text = format!(
+        "{TISSUE}\n[[intervention]]\nname = \"heat\"\nregion = \"all\"\nstart_h = 1.0\nduration_h = 1.0\n\
+         [intervention.heating]\npore_factor = 1.5\nrelax_time_h = 0.5\nupdate_interval_min = 10.0\n"
+    );
+    let mut s = sim(&text);
+    let wall0 = s.world.resource::<WallFluid>().clone();
+    run_to(&mut s, 1.5 * 3600.0);
+    let f = &s.world.resource::<ContinuumPores>().factor;
+    assert!(f.iter().all(|&x| (x - 1.5).abs() < 1e-12), "pores times 1.5 everywhere at full heat");
+    let wall = s.world.resource::<WallFluid>();
+    for (a, b) in wall0.lp_s.data.iter().zip(&wall.lp_s.data) {
+        assert!((b - 2.25 * a).abs() <= 1e-12 * a, "Lp S times 1.5^2");
+    }
+    // Seven relaxation times after the heating ends the walls are back to within 1e-3.
+    run_to(&mut s, 2.0 * 3600.0 + 7.0 * 1800.0);
+    let f = &s.world.resource::<ContinuumPores>().factor;
+    assert!(f.iter().all(|&x| (x - 1.0).abs() < 1e-3));
+}
+
+#[test]
+fn a_continuum_run_resumed_mid_normalisation_continues_exactly() {
+    // As the network restart test below: the pore factors in force are recomputed from the start
+    // values at the restored time, so the resumed run equals the uninterrupted one.
+    let text = format!(
+        "{}\n[[intervention]]\nname = \"norm\"\nstart_h = 0.5\n[intervention.normalisation]\n\
+         time_constant_h = 1.0\nupdate_interval_min = 20.0\n",
+        TISSUE
+            .replace("end_time_h = 6.0", "end_time_h = 2.0")
+            .replace("packet_particles = 1e9", "packet_particles = 1e4")
+    );
+    let mut a = sim(&text);
+    run_to(&mut a, 7200.0);
+    let (_, mut b) = restarted(&text, &text, 3600.0, 7200.0);
+    assert!(!state(&mut a).0.is_empty());
+    assert_eq!(state(&mut a), state(&mut b));
+    assert_eq!(a.world.resource::<ContinuumPores>().factor, b.world.resource::<ContinuumPores>().factor);
+    assert_eq!(
+        a.world.resource::<InterstitialFluid>().pressure.data,
+        b.world.resource::<InterstitialFluid>().pressure.data
+    );
 }
 
 #[test]
@@ -298,7 +398,7 @@ fn bad_interventions_get_clear_messages() {
         ("[intervention.set]\nkey = \"particle[3].coating\"\nvalue = \"none\"\n", "no entry 3"),
         ("[intervention.peptide]\nparticle = \"nope\"\n", "the name of a particle design"),
         ("[intervention.normalisation]\n[intervention.heating]\n", "exactly one of the tables"),
-        ("[intervention.normalisation]\n", "vessels.model = \"network\""),
+        ("[intervention.normalisation]\nprune_maturity_below = 0.3\n", "no maturity to prune by"),
         ("[intervention.matrix_degradation]\nrate_per_h = -1.0\n", "rate_per_h"),
     ];
     for (table, want) in cases {

@@ -31,6 +31,7 @@ use crate::process::transport::MotionFields;
 use crate::rng::{Domain, Streams, stream};
 use crate::scenario::VesselModel;
 use crate::tissue::{MAX_SPECIES, Regions};
+use crate::vascular::ContinuumPores;
 use crate::vessels::VesselRaster;
 use crate::vessels::flow::BloodFlow;
 use crate::vessels::network::Network;
@@ -99,8 +100,10 @@ pub struct WallExchange {
     births: Vec<(u32, u64, usize)>,
 }
 
-/// Patches of the continuum model: one uniform wall per voxel of each region.
-pub fn continuum_patches(l: &Lattice, regions: &Regions, p: &Params) -> Vec<Patch> {
+/// Patches of the continuum model: one uniform wall per voxel of each region, its pores scaled
+/// per voxel by `pores` (normalisation and heating; none: as the scenario gives them) at the
+/// pore area fraction of the region's walls, so `Lp` scales with the factor squared.
+pub fn continuum_patches(l: &Lattice, regions: &Regions, p: &Params, pores: Option<&[f64]>) -> Vec<Patch> {
     let c = &p.continuum_vessels;
     let mu = p.blood.plasma_viscosity;
     let vol = l.voxel_volume();
@@ -111,9 +114,11 @@ pub fn continuum_patches(l: &Lattice, regions: &Regions, p: &Params) -> Vec<Patc
         if s <= 0.0 {
             continue;
         }
-        let lp = c.wall_conductivity[r];
         // The pore area fraction that gives the wall its Lp: Lp = gamma r0^2 / (8 mu Lw).
-        let gamma = 8.0 * mu * c.wall_thickness * lp / (c.pore_radius[r] * c.pore_radius[r]);
+        let gamma = 8.0 * mu * c.wall_thickness * c.wall_conductivity[r] / (c.pore_radius[r] * c.pore_radius[r]);
+        let f = pores.map_or(1.0, |x| x[v]);
+        let pore = c.pore_radius[r] * f;
+        let lp = c.wall_conductivity[r] * f * f;
         let mut patch = Patch {
             voxel: v as u32,
             lp_s: lp * s,
@@ -123,7 +128,7 @@ pub fn continuum_patches(l: &Lattice, regions: &Regions, p: &Params) -> Vec<Patc
         };
         for (k, d) in p.designs.0.iter().enumerate() {
             let d0 = stokes_einstein(d.radius, mu, BODY_TEMPERATURE);
-            let w = wall_coefficients(c.pore_radius[r], gamma, c.wall_thickness, d.radius, d0, mu, p.network.hindrance);
+            let w = wall_coefficients(pore, gamma, c.wall_thickness, d.radius, d0, mu, p.network.hindrance);
             patch.ps[k] = w.permeability * s;
             patch.pass[k] = 1.0 - w.reflection;
         }
@@ -218,9 +223,18 @@ pub type PressureReader = fn(&World) -> Option<(&[f64], u64)>;
 #[derive(Resource, Clone, Copy)]
 pub struct PressureSource(pub PressureReader);
 
-/// Rebuilds the patches when the network changes and the coefficients when the pressure does.
+/// The revision of the vessel walls: the network's, or the continuum pores'.
+fn wall_revision(world: &World) -> u64 {
+    world
+        .get_resource::<Network>()
+        .map(|n| n.revision)
+        .or_else(|| world.get_resource::<ContinuumPores>().map(|c| c.revision))
+        .unwrap_or(0)
+}
+
+/// Rebuilds the patches when the vessel walls change and the coefficients when the pressure does.
 pub fn refresh_exchange(world: &mut World) {
-    let revision = world.get_resource::<Network>().map_or(0, |n| n.revision);
+    let revision = wall_revision(world);
     let reader = world.get_resource::<PressureSource>().copied();
     let solves = reader.and_then(|r| (r.0)(world)).map_or(0, |(_, k)| k);
     let seen = world.resource::<WallExchange>().seen;
@@ -228,12 +242,18 @@ pub fn refresh_exchange(world: &mut World) {
         return;
     }
     let params = world.resource::<ExchangeParams>().0.clone();
-    if params.vessel_model == VesselModel::Network && revision != seen.0 {
+    let l = world.resource::<Lattice>().clone();
+    if revision != seen.0 {
         let regions = world.resource::<Regions>().clone();
-        let patches = network_patches(world, &regions, &params);
+        let patches = match params.vessel_model {
+            VesselModel::Network => network_patches(world, &regions, &params),
+            VesselModel::Continuum => {
+                let pores = world.get_resource::<ContinuumPores>().map(|c| &c.factor[..]);
+                continuum_patches(&l, &regions, &params, pores)
+            }
+        };
         world.resource_mut::<WallExchange>().patches = patches;
     }
-    let l = world.resource::<Lattice>().clone();
     let species = world.resource::<Designs>().len();
     let pressure: Option<Vec<f64>> = reader.and_then(|r| (r.0)(world)).map(|(p, _)| p.to_vec());
     world.resource_scope(|world, mut ex: Mut<WallExchange>| {
@@ -384,14 +404,14 @@ pub fn install(world: &mut World, schedule: &mut Schedule, params: &Params) {
     let patches = match params.vessel_model {
         VesselModel::Continuum => {
             let l = world.resource::<Lattice>().clone();
-            continuum_patches(&l, world.resource::<Regions>(), params)
+            continuum_patches(&l, world.resource::<Regions>(), params, None)
         }
         VesselModel::Network => {
             let regions = world.resource::<Regions>().clone();
             network_patches(world, &regions, params)
         }
     };
-    let revision = world.get_resource::<Network>().map_or(0, |n| n.revision);
+    let revision = wall_revision(world);
     world.insert_resource(WallExchange { patches, seen: (revision, u64::MAX), ..Default::default() });
     world.insert_resource(ExchangeParams(params.clone()));
     schedule.add_systems((refresh_exchange, exchange_system).chain().in_set(Phase::Exchange));

@@ -8,17 +8,20 @@
 //!   `tau = t_1/2 / ln 2` (Michaelis and Menten 1913; first-order enzyme inactivation). Diffusive
 //!   hindrance (Ogston, Brinkman) and hydraulic conductivity (Jackson and James 1986) follow from
 //!   the new fibre fractions: the motion coefficients are rebuilt here and the pressure re-solves.
-//! - **Vessel normalisation** (network vessels): pore radii above the normal value relax as
+//! - **Vessel normalisation**: pore radii above the normal value relax as
 //!   `r(t) = r_n + (r_0 - r_n) exp(-(t - t0) / tau)`; wall conductivity follows from the pores
 //!   (`Lp = eps r^2 / (8 mu L)`, pore theory) when `vessels.network.wall_conductivity = "pores"`;
 //!   vessels less mature than a threshold close at the start ([`Network::closed`]: no flow, no
 //!   exchange). Flow, the Starling sums, the pressure and the wall exchange are re-solved. The
 //!   pruning of immature vessels and pore shrinkage follow the normalisation window described by
-//!   Jain 2005 (Science 307:58).
-//! - **Mild hyperthermia** (network vessels): a heating level `h(t)` = 1 during heating and
+//!   Jain 2005 (Science 307:58). Continuum vessels (one uniform wall per region) get the same pore
+//!   law voxel by voxel ([`ContinuumPores`]), their `Lp` following the pores at the walls' pore
+//!   area fraction; they have no maturity, so nothing is pruned.
+//! - **Mild hyperthermia**: a heating level `h(t)` = 1 during heating and
 //!   `exp(-(t - t1) / tau_r)` after it; pores widen `r = r_0 (1 + (f_p - 1) h)` and lumen radii
 //!   `R = R_0 (1 + (f_q^(1/4) - 1) h)`, so that Poiseuille flow (`Q ~ R^4`) rises by `f_q` at full
-//!   heat for a fixed pressure drop.
+//!   heat for a fixed pressure drop. Continuum vessels get the pores (as for normalisation); they
+//!   carry no modelled blood flow, so `f_q` does not act on them.
 //! - **Tissue-penetrating peptide**: while it acts, the carrying design's wall permeability is
 //!   multiplied by a factor (an active transcytosis route) and its diffusion coefficient by
 //!   another in voxels whose cell carries receptors (the C-end rule route of Teesalu et al. 2009,
@@ -39,7 +42,9 @@ use crate::process::exchange::WallExchange;
 use crate::process::output::ExtraSnapshots;
 use crate::process::transport::{MotionFields, TransportParams};
 use crate::scenario::MatrixFibre;
+use crate::scenario::VesselModel;
 use crate::tissue::{Matrix, Occupancy, Receptors, Regions, TUMOUR};
+use crate::vascular::{ContinuumPores, WallFluid};
 use crate::vessels::network::Network;
 use crate::world::{Breakpoints, Clock, Faults, Phase};
 
@@ -191,6 +196,9 @@ pub struct Interventions {
     base_pore: Vec<f64>,
     base_radius: Vec<f64>,
     maturity: Vec<f64>,
+    /// Continuum vessels: the pore radius per voxel and the Starling sums at the start (present
+    /// when a normalisation or heating acts on continuum vessels).
+    continuum: Option<(Vec<f64>, WallFluid)>,
     /// Names of the series (`intervention_<name>_level`), made once.
     series_names: Vec<&'static str>,
 }
@@ -270,6 +278,19 @@ pub fn install(world: &mut World, schedule: &mut Schedule, params: &Params) {
                 .collect()
         })
         .collect();
+    // Continuum vessels: one uniform wall per region, its pores scaled per voxel.
+    let acts_on_walls =
+        list.iter().any(|iv| matches!(iv.action, Action::Normalisation { .. } | Action::Heating { .. }));
+    let continuum = match world.get_resource::<WallFluid>() {
+        Some(wall) if acts_on_walls && params.vessel_model == VesselModel::Continuum => {
+            let pores = regions.iter().map(|&r| params.continuum_vessels.pore_radius[r as usize]).collect();
+            Some((pores, wall.clone()))
+        }
+        _ => None,
+    };
+    if continuum.is_some() {
+        world.insert_resource(ContinuumPores { factor: vec![1.0; l.len()], revision: 0 });
+    }
     let m = world.resource::<Matrix>();
     let series_names =
         list.iter().map(|iv| &*Box::leak(format!("intervention_{}_level", iv.name).into_boxed_str())).collect();
@@ -285,6 +306,7 @@ pub fn install(world: &mut World, schedule: &mut Schedule, params: &Params) {
         base_pore,
         base_radius,
         maturity,
+        continuum,
         series_names,
     });
     crate::process::output::add_series(world, series);
@@ -430,6 +452,48 @@ fn update_network(world: &mut World) {
         }
         net.closed = if closed.iter().any(|&c| c) { closed } else { Vec::new() };
         net.touch();
+    }
+    update_continuum_walls(world);
+}
+
+/// Continuum vessels: the pore factor of every voxel from the normalisations and heatings in
+/// force (the same laws as for segments, per voxel of each one's region), and the Starling sums
+/// that follow; the pressure re-solves on the new sums and the exchange on the new revision.
+/// Continuum vessels have no lumen or maturity: heating's flow factor and pruning do not apply.
+fn update_continuum_walls(world: &mut World) {
+    let factor = {
+        let ivs = world.resource::<Interventions>();
+        let Some((base, _)) = &ivs.continuum else { return };
+        let mut pore = base.clone();
+        for (i, iv) in ivs.list.iter().enumerate() {
+            let Some(_) = ivs.applied[i] else { continue };
+            let h = ivs.level_in_force(i);
+            for (v, r) in pore.iter_mut().enumerate() {
+                if !ivs.voxels[i][v] {
+                    continue;
+                }
+                match iv.action {
+                    Action::Normalisation { normal_pore_radius, .. } if *r > normal_pore_radius => {
+                        *r = normal_pore_radius + (*r - normal_pore_radius) * (1.0 - h);
+                    }
+                    Action::Heating { pore_factor, .. } => *r *= 1.0 + (pore_factor - 1.0) * h,
+                    _ => {}
+                }
+            }
+        }
+        pore.iter().zip(base).map(|(r, r0)| r / r0).collect::<Vec<f64>>()
+    };
+    let wall = {
+        let ivs = world.resource::<Interventions>();
+        ivs.continuum.as_ref().map(|(_, w)| w.with_pore_factors(&factor))
+    };
+    let mut pores = world.resource_mut::<ContinuumPores>();
+    if pores.factor != factor {
+        pores.factor = factor;
+        pores.revision += 1;
+        if let Some(wall) = wall {
+            world.insert_resource(wall);
+        }
     }
 }
 

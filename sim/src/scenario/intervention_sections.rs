@@ -55,15 +55,16 @@ section! {
 }
 
 section! {
-    /// Vessel normalisation (network vessels): pore radii of the vessels in the region relax
-    /// toward a normal value, the wall conductivity follows from the pores, and immature vessels
-    /// close; blood flow, pressure and wall exchange are re-solved.
+    /// Vessel normalisation: pore radii of the vessels in the region relax toward a normal value,
+    /// the wall conductivity follows from the pores, and immature vessels close (network vessels
+    /// only: continuum vessels have no maturity); blood flow, pressure and wall exchange are
+    /// re-solved.
     pub struct NormalisationSection {
         /// Pore radius the walls relax toward, nm.
         normal_pore_radius_nm: f64 = 20.0, Check::closed(0.5, 5000.0);
         /// Time constant of the relaxation, hours.
         time_constant_h: f64 = 24.0, Check::closed(0.01, 1.0e4);
-        /// Vessels whose maturity is below this close (are pruned) at the start.
+        /// Vessels whose maturity is below this close (are pruned) at the start (network vessels).
         prune_maturity_below: f64 = 0.0, Check::fraction();
         /// Interval between updates, minutes.
         update_interval_min: f64 = 60.0, Check::closed(0.1, 1.0e4);
@@ -71,14 +72,14 @@ section! {
 }
 
 section! {
-    /// Mild hyperthermia (network vessels): during heating the pores of the vessels in the region
-    /// widen by `pore_factor` and their blood flow rises by `flow_factor` through vasodilation
-    /// (lumen radius times `flow_factor^(1/4)`, Poiseuille); afterwards both relax back with
-    /// `relax_time_h`.
+    /// Mild hyperthermia: during heating the pores of the vessels in the region widen by
+    /// `pore_factor` and their blood flow rises by `flow_factor` through vasodilation (lumen
+    /// radius times `flow_factor^(1/4)`, Poiseuille; network vessels: continuum vessels carry no
+    /// modelled flow); afterwards both relax back with `relax_time_h`.
     pub struct HeatingSection {
         /// Factor on the pore radius at full heat.
         pore_factor: f64 = 1.5, Check::closed(0.1, 10.0);
-        /// Factor on blood flow at full heat.
+        /// Factor on blood flow at full heat (network vessels).
         flow_factor: f64 = 2.0, Check::closed(0.1, 10.0);
         /// Time constant of the return after heating ends, hours.
         relax_time_h: f64 = 0.5, Check::closed(0.001, 1.0e3);
@@ -316,11 +317,14 @@ pub fn intervention_problems(s: &Scenario, out: &mut Vec<Problem>) {
             ));
         }
         let network = s.vessels.model == super::VesselModel::Network;
-        if (iv.normalisation.is_some() || iv.heating.is_some()) && !network {
+        if let Some(n) = &iv.normalisation
+            && n.prune_maturity_below > 0.0
+            && !network
+        {
             out.push(problem(
-                &format!(".{}", actions[0]),
-                "with vessels.model = \"continuum\"".into(),
-                "vessels.model = \"network\": this intervention acts on the vessel segments".into(),
+                ".normalisation.prune_maturity_below",
+                format!("{} with vessels.model = \"continuum\"", n.prune_maturity_below),
+                "0 with continuum vessels (they have no maturity to prune by), or vessels.model = \"network\"".into(),
             ));
         }
         if iv.heating.is_some() && iv.duration_h <= 0.0 {
