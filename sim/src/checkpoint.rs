@@ -12,7 +12,7 @@
 //! ledger; the plasma pools (their dose schedules are a function of the scenario, and what a step
 //! receives of them a function of the restored clock: nothing of theirs needs saving); the carried fractions of packets at each wall site; the matrix
 //! fields; the interstitial pressure and its solve count; the oxygen field with its cell states,
-//! solve record and whether a solve was due. A process that adds dynamic state adds it here.
+//! solve record, blood levels along the vessels and whether a solve was due. A process that adds dynamic state adds it here.
 
 use std::path::{Path, PathBuf};
 
@@ -24,7 +24,7 @@ use crate::particles::Packets;
 use crate::process::accounting::Ledger;
 use crate::process::binding::{ActiveCells, CellGains, CellSites, MatrixLoad};
 use crate::process::exchange::WallExchange;
-use crate::process::oxygen::{Oxygen, OxygenReport};
+use crate::process::oxygen::{BloodBalance, Oxygen, OxygenReport};
 use crate::process::plasma::PlasmaPools;
 use crate::tissue::{Cell, CellKind, CellLoad, MAX_SPECIES, Matrix, Occupancy, Receptors};
 use crate::world::Clock;
@@ -172,6 +172,10 @@ fn save(world: &mut World, f: &File, fp: &str) -> hdf5::Result<()> {
         attr(&g, "newton_iterations", ox.report.newton_iterations as u64)?;
         attr(&g, "linear_iterations", ox.report.linear_iterations as u64)?;
         attr(&g, "last_change", ox.report.last_change)?;
+        attr(&g, "blood_iterations", ox.report.blood_iterations as u64)?;
+        attr(&g, "blood_inflow", ox.balance.inflow)?;
+        attr(&g, "blood_outflow", ox.balance.outflow)?;
+        put(&g, "blood_pressure", &ox.blood_pressure)?;
         put(&g, "concentration", &ox.concentration.data)?;
         put(&g, "kinds", &ox.kinds.data)?;
         put(&g, "states", &ox.states.data)?;
@@ -369,7 +373,11 @@ fn load(world: &mut World, f: &File) -> hdf5::Result<u64> {
                 newton_iterations: read_attr::<u64>(&g, "newton_iterations")? as usize,
                 linear_iterations: read_attr::<u64>(&g, "linear_iterations")? as usize,
                 last_change: read_attr(&g, "last_change")?,
+                blood_iterations: read_attr::<u64>(&g, "blood_iterations")? as usize,
             };
+            ox.balance =
+                BloodBalance { inflow: read_attr(&g, "blood_inflow")?, outflow: read_attr(&g, "blood_outflow")? };
+            ox.blood_pressure = get(&g, "blood_pressure")?;
             ox.concentration.data = get(&g, "concentration")?;
             ox.kinds.data = get(&g, "kinds")?;
             ox.states.data = get(&g, "states")?;

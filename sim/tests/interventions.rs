@@ -461,11 +461,21 @@ fn a_run_with_oxygen_resumed_mid_treatment_continues_exactly() {
     // As above with the oxygen process on: the normalisation closes vessels after the checkpoint
     // (re-solves of the oxygen field follow), and the resumed run's oxygen field, cell states and
     // solve count equal the uninterrupted run's bit for bit. The checkpoint at 1 h falls between
-    // two normalisation updates (every 20 min from 0.5 h).
-    let text = format!("{}\n[oxygen]\nenabled = true\n", treated_network());
-    let mut a = sim(&text);
+    // two normalisation updates (every 20 min from 0.5 h). Blood at a constant level, and
+    // carried along the vessels (its levels are part of the checkpoint).
+    for blood in ["constant", "along-vessels"] {
+        resumed_with_oxygen(&format!(
+            "{}\n[oxygen]\nenabled = true\nblood_transport = \"{blood}\"\n",
+            treated_network()
+        ));
+    }
+}
+
+/// The oxygen restart checks of the test above for one scenario.
+fn resumed_with_oxygen(text: &str) {
+    let mut a = sim(text);
     run_to(&mut a, 7200.0);
-    let (_, mut b) = restarted(&text, &text, 3600.0, 7200.0);
+    let (_, mut b) = restarted(text, text, 3600.0, 7200.0);
     assert_eq!(state(&mut a), state(&mut b));
     let (oa, ob) = (a.world.resource::<Oxygen>(), b.world.resource::<Oxygen>());
     assert!(oa.solves > 1, "the normalisation made the oxygen field re-solve ({} solves)", oa.solves);
@@ -473,16 +483,17 @@ fn a_run_with_oxygen_resumed_mid_treatment_continues_exactly() {
     assert_eq!(oa.report, ob.report, "last solve reports");
     assert!(oa.concentration.data == ob.concentration.data, "oxygen fields differ after the restart");
     assert_eq!(oa.states.data, ob.states.data, "cell states");
+    assert!(oa.blood_pressure == ob.blood_pressure, "blood levels along the vessels");
     // A solve that was due at the checkpoint (here: the cells marked changed after the step) is
     // still due after the restart, and both runs make it from the same field.
     let dir = tempfile::tempdir().unwrap();
     let ck = dir.path().join("due.ckpt.h5");
-    let mut c = sim(&text);
+    let mut c = sim(text);
     run_to(&mut c, 3600.0);
     c.world.resource_mut::<Occupancy>().set_changed();
     assert!(!oxygen::is_current(&c.world));
     interstice_sim::checkpoint::write(&mut c.world, &ck, "same").unwrap();
-    let mut d = sim(&text);
+    let mut d = sim(text);
     interstice_sim::checkpoint::read(&mut d.world, &ck, "same").unwrap();
     assert!(!oxygen::is_current(&d.world), "the due solve was lost in the restart");
     run_to(&mut c, 7200.0);

@@ -1,6 +1,21 @@
 //! Scenario sections of the heterogeneous terrain: the tissue generator, oxygen, and growth.
 
-use super::spec::{Check, section};
+use serde::{Deserialize, Serialize};
+
+use super::spec::{Check, checked_plain, section};
+
+/// How the oxygen level of the blood in the vessels is set.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum BloodTransport {
+    /// Every perfused vessel at `blood_pO2_mmHg`.
+    Constant,
+    /// Carried along the network's perfused segments from the inlets (at `inlet_pO2_mmHg`),
+    /// dissolved and bound to haemoglobin (Hill saturation), losing what the walls deliver
+    /// (network vessels only).
+    AlongVessels,
+}
+checked_plain!(BloodTransport);
 
 section! {
     /// Tissue generator: a tumour mask from a file, stromal cells, and spatially correlated
@@ -37,8 +52,24 @@ section! {
         diffusivity_m2_per_s: f64 = 2.0e-9, Check::closed(1.0e-12, 1.0e-7);
         /// Oxygen solubility in tissue, mol/(m^3 mmHg) (about 1.3e-3; from memory).
         solubility_mol_per_m3_mmHg: f64 = 1.3e-3, Check::closed(1.0e-5, 1.0e-1);
-        /// Oxygen partial pressure of blood in perfused vessels, mmHg.
+        /// Oxygen partial pressure of blood in perfused vessels, mmHg (with blood_transport =
+        /// "constant").
         blood_pO2_mmHg: f64 = 40.0, Check::closed(0.0, 800.0);
+        /// "constant" (every perfused vessel at blood_pO2_mmHg) or "along-vessels" (oxygen
+        /// carried by the blood flow from the network's inlets and given up along the way;
+        /// vessels.model = "network").
+        blood_transport: BloodTransport = BloodTransport::Constant;
+        /// Oxygen partial pressure of the blood entering the network, mmHg (along-vessels;
+        /// arterial blood about 95; common practice).
+        inlet_pO2_mmHg: f64 = 95.0, Check::closed(1.0, 800.0);
+        /// Oxygen bound by fully saturated haemoglobin per volume of blood, mol/m^3 (along-vessels;
+        /// 150 g/L haemoglobin times 1.34 mL O2/g is about 9; from memory).
+        hemoglobin_capacity_mol_per_m3: f64 = 9.0, Check::closed(0.0, 100.0);
+        /// Partial pressure of half saturation of haemoglobin, mmHg (along-vessels; about 26.8
+        /// for human blood, Severinghaus 1979; from memory).
+        hill_p50_mmHg: f64 = 26.8, Check::closed(1.0, 200.0);
+        /// Hill exponent of the saturation curve (along-vessels; about 2.7; common practice).
+        hill_exponent: f64 = 2.7, Check::closed(1.0, 5.0);
         /// Oxygen permeability of vessel walls, um/s (oxygen crosses walls almost freely: the
         /// default keeps the wall's resistance well below the tissue's; from memory).
         wall_permeability_um_per_s: f64 = 1.0e4, Check::closed(0.0, 1.0e7);
@@ -122,6 +153,16 @@ impl super::Scenario {
                 line: None,
             });
         }
+        if o.blood_transport == BloodTransport::AlongVessels && self.vessels.model != super::VesselModel::Network {
+            out.push(super::Problem {
+                path: "oxygen.blood_transport".into(),
+                value: "\"along-vessels\" with vessels.model = \"continuum\"".into(),
+                expected: "\"constant\" with continuum vessels (they have no segments to carry blood along), or \
+                           vessels.model = \"network\""
+                    .into(),
+                line: None,
+            });
+        }
         let g = &self.growth;
         if g.enabled && g.time_step_h > g.duration_d * 24.0 {
             out.push(super::Problem {
@@ -152,6 +193,8 @@ mod tests {
         assert!(e.contains("oxygen.necrotic_threshold_mmHg") && e.contains("at most"), "{e}");
         let e = problems("[tissue]\ntumour_mask_file = \"no-such.mask\"\n");
         assert!(e.contains("tissue.tumour_mask_file") && e.contains("no-such.mask"), "{e}");
+        let e = problems("[oxygen]\nenabled = true\nblood_transport = \"along-vessels\"\n");
+        assert!(e.contains("oxygen.blood_transport") && e.contains("vessels.model = \"network\""), "{e}");
         let e = problems("[tissue]\nmatrix_cv = -1.0\n");
         assert!(e.contains("tissue.matrix_cv") && e.contains(":2"), "{e}");
     }

@@ -328,22 +328,7 @@ struct Chain {
 /// Contracts every chain of degree-two nodes into one edge (exact for a linear network).
 fn contract(net: &Network, g: &[f64]) -> (Vec<bool>, Vec<Chain>) {
     let n = net.nodes.len();
-    let mut start = vec![0usize; n + 1];
-    for s in &net.segments {
-        start[s.a as usize + 1] += 1;
-        start[s.b as usize + 1] += 1;
-    }
-    for i in 0..n {
-        start[i + 1] += start[i];
-    }
-    let mut fill = start.clone();
-    let mut inc = vec![0u32; 2 * net.segments.len()];
-    for (k, s) in net.segments.iter().enumerate() {
-        inc[fill[s.a as usize]] = k as u32;
-        fill[s.a as usize] += 1;
-        inc[fill[s.b as usize]] = k as u32;
-        fill[s.b as usize] += 1;
-    }
+    let (start, inc) = net.incidence();
     let passing: Vec<bool> = (0..n)
         .map(|i| {
             net.bc[i] == NodeBc::None && start[i + 1] - start[i] == 2 && {

@@ -89,6 +89,29 @@ impl Network {
         self.revision += 1;
     }
 
+    /// The segments at each node (compressed rows): those of node `i` are
+    /// `list[start[i]..start[i + 1]]`, in segment order (a loop segment appears twice).
+    pub fn incidence(&self) -> (Vec<usize>, Vec<u32>) {
+        let n = self.nodes.len();
+        let mut start = vec![0usize; n + 1];
+        for s in &self.segments {
+            start[s.a as usize + 1] += 1;
+            start[s.b as usize + 1] += 1;
+        }
+        for i in 0..n {
+            start[i + 1] += start[i];
+        }
+        let mut fill = start.clone();
+        let mut list = vec![0u32; 2 * self.segments.len()];
+        for (k, s) in self.segments.iter().enumerate() {
+            for end in [s.a, s.b] {
+                list[fill[end as usize]] = k as u32;
+                fill[end as usize] += 1;
+            }
+        }
+        (start, list)
+    }
+
     /// Adds a node, returns its index.
     pub fn add_node(&mut self, x: [f64; 3], bc: NodeBc) -> u32 {
         self.nodes.push(x);
