@@ -9,8 +9,9 @@
 //!
 //! Saved: the clock; the packet table in its current order; every cell (kind, voxel, receptors,
 //! loads, the time of its last kinetics update, whether it is active); matrix adsorption; the
-//! ledger; the plasma pools (their dose schedules are a function of the scenario, and what a step
-//! receives of them a function of the restored clock: nothing of theirs needs saving); the carried fractions of packets at each wall site; the matrix
+//! ledger; the plasma pools with the bolus cohorts of measured curves (their dose schedules are a
+//! function of the scenario, and what a step receives of them a function of the restored clock:
+//! nothing of theirs needs saving); the carried fractions of packets at each wall site; the matrix
 //! fields; the interstitial pressure and its solve count; the oxygen field with its cell states,
 //! solve record, blood levels along the vessels and whether a solve was due. A process that adds dynamic state adds it here.
 
@@ -148,6 +149,12 @@ fn save(world: &mut World, f: &File, fp: &str) -> hdf5::Result<()> {
         put(&g, "cleared_renal", &col(|p| p.cleared_renal))?;
         put(&g, "to_tissue", &col(|p| p.to_tissue))?;
         put(&g, "from_tissue", &col(|p| p.from_tissue))?;
+        // Cohorts of measured curves: pool index, bolus time, particles.
+        let cohorts: Vec<(u64, crate::vessels::pk::Cohort)> =
+            pools.pools.iter().enumerate().flat_map(|(s, p)| p.cohorts.iter().map(move |c| (s as u64, *c))).collect();
+        put(&g, "cohort_pool", &cohorts.iter().map(|c| c.0).collect::<Vec<u64>>())?;
+        put(&g, "cohort_start", &cohorts.iter().map(|c| c.1.start).collect::<Vec<f64>>())?;
+        put(&g, "cohort_amount", &cohorts.iter().map(|c| c.1.amount).collect::<Vec<u64>>())?;
     }
     if let Some(ex) = world.get_resource::<WallExchange>() {
         let g = f.create_group("exchange")?;
@@ -318,6 +325,14 @@ fn load(world: &mut World, f: &File) -> hdf5::Result<u64> {
             pool.cleared_renal = v[4][s];
             pool.to_tissue = v[5][s];
             pool.from_tissue = v[6][s];
+            pool.cohorts.clear();
+        }
+        let (which, start, amount): (Vec<u64>, Vec<f64>, Vec<u64>) =
+            (get(&g, "cohort_pool")?, get(&g, "cohort_start")?, get(&g, "cohort_amount")?);
+        for ((s, start), amount) in which.into_iter().zip(start).zip(amount) {
+            if let Some(pool) = pools.pools.get_mut(s as usize) {
+                pool.cohorts.push(crate::vessels::pk::Cohort { start, amount });
+            }
         }
     }
 

@@ -17,7 +17,9 @@ use std::path::Path;
 use interstice_sim::process::plasma::PlasmaPools;
 use interstice_sim::rng::{Domain, stream};
 use interstice_sim::vessels::dosing::{Bolus, DoseSchedule, Infusion};
-use interstice_sim::vessels::pk::{Elimination, PlasmaPool, transition, transition_integral, two_compartment};
+use interstice_sim::vessels::pk::{
+    Elimination, PlasmaPool, PlasmaTable, transition, transition_integral, two_compartment,
+};
 use interstice_sim::world::{Breakpoints, Clock};
 use interstice_sim::{LoadedScenario, Simulation};
 
@@ -113,6 +115,42 @@ fn repeated_boluses_follow_the_superposition_of_one_compartment_decays() {
     let at = curve.iter().position(|c| (c.0 - 3.5 * H).abs() < 1e-6).expect("a step ends at 3.5 h");
     let jump = curve[at + 1].1 - curve[at].1 * (-k * (curve[at + 1].0 - curve[at].0)).exp();
     assert!((jump - 5e11 * (-k * (curve[at + 1].0 - curve[at].0)).exp()).abs() < 5e6, "{jump}");
+}
+
+#[test]
+fn repeated_boluses_superpose_a_measured_plasma_curve() {
+    // A measured curve is the response to one bolus; with linear pharmacokinetics n boluses give
+    // sum_i D_i f(t - t_i) (the superposition principle, as above). The curve here is sampled
+    // from a bi-exponential, so each bolus's particles must leave along it from their own bolus
+    // time: a pool that aged every particle from the first bolus would fall far too fast.
+    let f = |t_h: f64| 0.35 * (-t_h * 1.5).exp() + 0.65 * (-t_h * 0.08).exp();
+    let times: Vec<f64> = [0.0, 0.25, 0.5, 1.0, 2.0, 3.0, 4.0, 6.0, 9.0, 12.0, 16.0].iter().map(|h| h * H).collect();
+    let values: Vec<f64> = times.iter().map(|&t| f(t / H)).collect();
+    let table = PlasmaTable::new(times, &values);
+    let mut s = DoseSchedule { boluses: vec![Bolus { time: 0.0, particles: 1_000_000_000_000 }], infusions: vec![] };
+    s.boluses.extend((0..3).map(|j| Bolus { time: (2.0 + 3.0 * f64::from(j)) * H, particles: 700_000_000_000 }));
+    let mut pool = PlasmaPool::scheduled("p", s.clone(), 2e-6, 1.1e-6, Elimination::Table(table.clone()));
+    let curve = run(&mut pool, 14.0 * H, 120.0, 5);
+    let want = |t: f64| -> f64 {
+        s.boluses.iter().filter(|b| t > b.time).map(|b| b.particles as f64 * table.fraction(t - b.time)).sum()
+    };
+    for &(t, amount, _) in &curve {
+        assert_close("plasma", t, amount, want(t));
+    }
+    assert_eq!(pool.cohorts.len(), 4);
+    // Particles withdrawn into the tissue leave every cohort in proportion, and those returned
+    // join them in proportion: the counts stay exact.
+    let before: Vec<u64> = pool.cohorts.iter().map(|c| c.amount).collect();
+    let taken = pool.withdraw(pool.amount / 3);
+    let after: Vec<u64> = pool.cohorts.iter().map(|c| c.amount).collect();
+    for (b, a) in before.iter().zip(&after) {
+        let share = (b - a) as f64 / taken as f64;
+        let expected = *b as f64 / before.iter().sum::<u64>() as f64;
+        assert!((share - expected).abs() < 1e-9, "{share} vs {expected}");
+    }
+    pool.give_back(taken / 2);
+    assert!(pool.balanced());
+    assert_eq!(pool.cohorts.iter().map(|c| c.amount).sum::<u64>(), pool.amount);
 }
 
 #[test]
@@ -340,7 +378,7 @@ fn dose_schedules_are_validated_with_the_key_and_what_it_takes() {
             "[particle.plasma]\nmodel = \"table\"\ntable_csv = \"dosing.rs\"\n[[particle.dose]]\nkind = \"infusion\"\n\
              duration_h = 1.0\nparticles = 1e12\n",
             "particle[0].plasma.model",
-            "one bolus for a measured plasma curve",
+            "boluses only for a measured plasma curve",
         ),
     ];
     for (extra, path, expected) in cases {
@@ -362,12 +400,18 @@ fn dose_schedules_are_validated_with_the_key_and_what_it_takes() {
 
 #[test]
 fn a_run_resumed_from_a_checkpoint_inside_a_schedule_continues_bit_for_bit() {
-    // Checkpoint at 2 h: design a has had one bolus and has two to come, design b is mid-infusion.
+    // Checkpoint at 2 h: design a has had one bolus and has two to come, design b is mid-infusion,
+    // design c (a measured curve) has particles of two boluses in plasma and one to come.
     // What a step receives of a schedule is a function of the restored clock, so the resumed run
     // must give the same counts as the uninterrupted one at every step.
-    let loaded = load(SCENARIO).unwrap();
-    let fp = interstice_sim::checkpoint::fingerprint(&loaded.text);
     let dir = tempfile::tempdir().unwrap();
+    std::fs::write(dir.path().join("pk.csv"), "time_h,percent_of_dose\n0.1,90\n1,60\n3,40\n8,20\n").unwrap();
+    let text = format!(
+        "{SCENARIO}[[particle]]\nname = \"c\"\n[particle.plasma]\nmodel = \"table\"\ntable_csv = \"pk.csv\"\n\
+         [[particle.dose]]\nkind = \"repeated\"\nevery_h = 1.2\ncount = 3\nparticles = 1e12\n"
+    );
+    let loaded = LoadedScenario::from_text(&dir.path().join("dosing.toml"), text).unwrap();
+    let fp = interstice_sim::checkpoint::fingerprint(&loaded.text);
     let ckpt = dir.path().join("dosing.ckpt.h5");
     let mut a = Simulation::new(&loaded).unwrap();
     while a.world.resource::<Clock>().time < 2.0 * H - 1e-6 {
@@ -379,11 +423,15 @@ fn a_run_resumed_from_a_checkpoint_inside_a_schedule_continues_bit_for_bit() {
     let counts = |s: &Simulation| {
         let c = s.world.resource::<Clock>();
         let p = s.world.resource::<PlasmaPools>();
-        let pools: Vec<_> =
-            p.pools.iter().map(|q| (q.dose, q.amount, q.peripheral, q.cleared, q.cleared_renal)).collect();
+        let pools: Vec<_> = p
+            .pools
+            .iter()
+            .map(|q| (q.dose, q.amount, q.peripheral, q.cleared, q.cleared_renal, format!("{:?}", q.cohorts)))
+            .collect();
         (c.time.to_bits(), c.step, pools)
     };
     assert_eq!(counts(&a), counts(&b));
+    assert_eq!(a.world.resource::<PlasmaPools>().pools[2].cohorts.len(), 2, "two boluses of c by 2 h");
     while !a.world.resource::<Clock>().done() {
         a.step().unwrap();
         b.step().unwrap();

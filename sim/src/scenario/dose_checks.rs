@@ -1,6 +1,6 @@
 //! Consistency checks of the dose schedules: the keys each kind of `[[particle.dose]]` takes,
-//! doses inside the run, totals that fit the exact 64-bit particle counts, and the one bolus a
-//! measured plasma curve describes.
+//! doses inside the run, totals that fit the exact 64-bit particle counts, and boluses only for
+//! a measured plasma curve.
 
 use super::sections::{DoseKind, DoseSection, PlasmaModel, Scenario};
 use super::spec::Problem;
@@ -48,7 +48,6 @@ impl Scenario {
                 );
             }
             let mut total = 0.0;
-            let mut boluses = 0u64;
             let mut infusions = 0;
             for (j, d) in p.dose.iter().enumerate() {
                 let path = |k: &str| format!("particle[{i}].dose[{j}].{k}");
@@ -94,10 +93,8 @@ impl Scenario {
                     }
                 };
                 total += n;
-                match d.kind {
-                    DoseKind::Infusion => infusions += 1,
-                    DoseKind::Repeated => boluses += u64::from(d.count.unwrap_or(1)),
-                    DoseKind::Bolus => boluses += 1,
+                if d.kind == DoseKind::Infusion {
+                    infusions += 1;
                 }
                 let within = if d.kind == DoseKind::Infusion { last <= end * (1.0 + 1e-12) } else { last < end };
                 if !within {
@@ -129,13 +126,14 @@ impl Scenario {
                     format!("a schedule of at most {MAX_TOTAL:e} particles (exact 64-bit counts)"),
                 );
             }
-            if p.plasma.model == PlasmaModel::Table && !p.dose.is_empty() && (boluses != 1 || infusions > 0) {
+            if p.plasma.model == PlasmaModel::Table && infusions > 0 {
                 push(
                     format!("particle[{i}].plasma.model"),
                     "\"table\"".into(),
                     format!(
-                        "one bolus for a measured plasma curve (it is the response to one bolus); this design has \
-                         {boluses} bolus(es) and {infusions} infusion(s): use \"design\" or \"half-life\""
+                        "boluses only for a measured plasma curve (it is the response to one bolus, which \
+                         repeated boluses superpose); this design has {infusions} infusion(s): use \"design\" or \
+                         \"half-life\""
                     ),
                 );
             }

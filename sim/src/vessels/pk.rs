@@ -17,7 +17,11 @@
 //!   chapter 2).
 //! - **Table**: a measured curve, interpolated log-linearly between samples (exponential decay
 //!   within each interval) and extrapolated with the first and last intervals' rates; it sets the
-//!   shape, the dose the scale. A rise between two samples is read as no elimination there.
+//!   shape, the dose the scale. A rise between two samples is read as no elimination there. The
+//!   curve is the response to one bolus; repeated boluses superpose it (linear
+//!   pharmacokinetics): the particles of each bolus are kept apart ([`Cohort`]) and leave along
+//!   the curve timed from their own bolus. Particles withdrawn into the tissue are taken from the
+//!   cohorts, and those returned given to them, in proportion to their sizes.
 //!
 //! Doses follow the design's [`DoseSchedule`] (see [`crate::vessels::dosing`]). A bolus given at
 //! the start of a step is eliminated over the whole step. Particles infused during a step
@@ -313,6 +317,47 @@ pub struct PlasmaPool {
     pub elimination: Elimination,
     /// When the particles are given (a function of the scenario, not saved in checkpoints).
     pub schedule: DoseSchedule,
+    /// Measured-curve model: the particles in plasma by the bolus that brought them, oldest
+    /// first (the curve's clock runs from each bolus: repeated boluses superpose it); empty for
+    /// the other models.
+    pub cohorts: Vec<Cohort>,
+}
+
+/// Particles in plasma from one bolus of the measured-curve model.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Cohort {
+    /// Time of the bolus, s.
+    pub start: f64,
+    pub amount: u64,
+}
+
+/// Shares of `k` among `amounts` in proportion (largest remainders, ties to the lower index):
+/// exact in sum, and no share above its amount when `k` is at most their sum.
+fn proportional(k: u64, amounts: impl Iterator<Item = u64> + Clone) -> Vec<u64> {
+    let total: u128 = amounts.clone().map(u128::from).sum();
+    if total == 0 {
+        return amounts.map(|_| 0).collect();
+    }
+    let exact: Vec<(u64, u128)> = amounts
+        .map(|a| {
+            let x = u128::from(k) * u128::from(a);
+            ((x / total) as u64, x % total)
+        })
+        .collect();
+    let mut shares: Vec<u64> = exact.iter().map(|e| e.0).collect();
+    let mut left = k - shares.iter().sum::<u64>();
+    let mut by_remainder: Vec<usize> = (0..exact.len()).collect();
+    by_remainder.sort_by(|&i, &j| exact[j].1.cmp(&exact[i].1).then(i.cmp(&j)));
+    for i in by_remainder {
+        if left == 0 {
+            break;
+        }
+        if exact[i].1 > 0 {
+            shares[i] += 1;
+            left -= 1;
+        }
+    }
+    shares
 }
 
 impl PlasmaPool {
@@ -341,6 +386,10 @@ impl PlasmaPool {
             from_tissue: 0,
             blood_volume,
             plasma_volume,
+            cohorts: match elimination {
+                Elimination::Table(_) if dose > 0 => vec![Cohort { start: schedule.first_time(), amount: dose }],
+                _ => Vec::new(),
+            },
             elimination,
             schedule,
         }
@@ -357,6 +406,12 @@ impl PlasmaPool {
         let k = n.min(self.amount);
         self.amount -= k;
         self.to_tissue += k;
+        if !self.cohorts.is_empty() {
+            let shares = proportional(k, self.cohorts.iter().map(|c| c.amount));
+            for (c, x) in self.cohorts.iter_mut().zip(shares) {
+                c.amount -= x;
+            }
+        }
         k
     }
 
@@ -364,13 +419,27 @@ impl PlasmaPool {
     pub fn give_back(&mut self, n: u64) {
         self.amount += n;
         self.from_tissue += n;
+        // Returned particles join the boluses' cohorts in proportion (the newest when all are
+        // empty).
+        if self.cohorts.iter().all(|c| c.amount == 0) {
+            if let Some(c) = self.cohorts.last_mut() {
+                c.amount += n;
+            }
+        } else {
+            let shares = proportional(n, self.cohorts.iter().map(|c| c.amount));
+            for (c, x) in self.cohorts.iter_mut().zip(shares) {
+                c.amount += x;
+            }
+        }
     }
 
-    /// Whether `dose + returned = plasma + peripheral + cleared + withdrawn` (exactly).
+    /// Whether `dose + returned = plasma + peripheral + cleared + withdrawn` (exactly), and the
+    /// cohorts of a measured curve hold the plasma's particles.
     pub fn balanced(&self) -> bool {
         let gained = self.dose as u128 + self.from_tissue as u128;
         let held = self.amount as u128 + self.peripheral as u128 + self.cleared as u128 + self.to_tissue as u128;
-        gained == held && self.cleared_renal <= self.cleared
+        let cohorts = self.cohorts.is_empty() || self.cohorts.iter().map(|c| c.amount).sum::<u64>() == self.amount;
+        gained == held && self.cleared_renal <= self.cleared && cohorts
     }
 
     /// Gives the step's doses and eliminates particles over `[t, t + dt]` (s) with the exact
@@ -383,6 +452,9 @@ impl PlasmaPool {
         let bolus = self.schedule.boluses_at(t, dt);
         self.amount += bolus;
         self.dose += bolus;
+        if bolus > 0 && matches!(self.elimination, Elimination::Table(_)) {
+            self.cohorts.push(Cohort { start: t, amount: bolus });
+        }
         self.eliminate(t, dt, s);
         let infused = self.schedule.infused_over(t, dt);
         if infused > 0 {
@@ -413,13 +485,13 @@ impl PlasmaPool {
                 self.cleared += gone;
             }
             Elimination::Table(tab) => {
-                // Validation keeps infusions away from measured curves (one bolus only); a
-                // particle is taken to arrive at mid-step.
-                let t0 = self.schedule.first_time();
-                let (f0, f1) = (tab.fraction(t + 0.5 * dt - t0), tab.fraction(t + dt - t0));
+                // Validation keeps infusions away from measured curves (boluses only); were one
+                // given, its particles would count as a bolus at mid-step.
+                let (f0, f1) = (tab.fraction(0.0), tab.fraction(0.5 * dt));
                 let gone = s.binomial(n, if f0 > 0.0 { (1.0 - f1 / f0).clamp(0.0, 1.0) } else { 0.0 });
                 self.amount += n - gone;
                 self.cleared += gone;
+                self.cohorts.push(Cohort { start: t + 0.5 * dt, amount: n - gone });
             }
         }
     }
@@ -450,13 +522,18 @@ impl PlasmaPool {
                 self.cleared += gone_c + gone_p;
             }
             Elimination::Table(tab) => {
-                // The measured curve is the response to the design's one bolus.
-                let t0 = self.schedule.first_time();
-                let (f0, f1) = (tab.fraction(t - t0), tab.fraction(t + dt - t0));
-                let p = if f0 > 0.0 { (1.0 - f1 / f0).clamp(0.0, 1.0) } else { 0.0 };
-                let n = s.binomial(self.amount, p);
-                self.amount -= n;
-                self.cleared += n;
+                // The measured curve is the response to one bolus: each bolus's particles leave
+                // along it, timed from their bolus.
+                let mut gone = 0;
+                for c in &mut self.cohorts {
+                    let (f0, f1) = (tab.fraction(t - c.start), tab.fraction(t + dt - c.start));
+                    let p = if f0 > 0.0 { (1.0 - f1 / f0).clamp(0.0, 1.0) } else { 0.0 };
+                    let n = s.binomial(c.amount, p);
+                    c.amount -= n;
+                    gone += n;
+                }
+                self.amount -= gone;
+                self.cleared += gone;
             }
         }
     }
