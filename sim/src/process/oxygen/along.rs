@@ -170,18 +170,6 @@ pub fn march(
     order: &mut Vec<u32>,
     out: &mut Vec<f64>,
 ) -> BloodBalance {
-    march_with(net, flow, law, order, out, |s, q, c_in| segment_pressure(law, q, c_in, walls.of(s), tissue))
-}
-
-/// As [`march`], with each segment's level from `level(segment, flow, inflow content)`.
-fn march_with(
-    net: &Network,
-    flow: &BloodFlow,
-    law: &BloodOxygenLaw,
-    order: &mut Vec<u32>,
-    out: &mut Vec<f64>,
-    mut level: impl FnMut(usize, f64, f64) -> f64,
-) -> BloodBalance {
     let ns = net.segments.len();
     out.clear();
     out.resize(ns, 0.0);
@@ -235,7 +223,7 @@ fn march_with(
             }
             let q = -into(s, n);
             if q > 0.0 {
-                out[s] = level(s, q, mixed);
+                out[s] = segment_pressure(law, q, mixed, walls.of(s), tissue);
             }
         }
     }
