@@ -6,6 +6,7 @@ use std::path::Path;
 
 use interstice_sim::process::oxygen::along::{BloodOxygenLaw, segment_pressure};
 use interstice_sim::process::oxygen::{self, Oxygen, OxygenParams, consumption_rate};
+use interstice_sim::terrain::growth::GrowthHistory;
 use interstice_sim::units::MMHG;
 use interstice_sim::vessels::flow::BloodFlow;
 use interstice_sim::{LoadedScenario, Simulation};
@@ -120,4 +121,25 @@ fn blood_that_never_runs_short_gives_the_constant_level_field() {
     let usual = sim(&network(&format!("{ALONG}\ninlet_pO2_mmHg = 60.0\n")));
     let mean = |v: &[f64]| v.iter().sum::<f64>() / v.len() as f64;
     assert!(mean(&usual.world.resource::<Oxygen>().concentration.data) < mean(b));
+}
+
+#[test]
+fn a_growth_phase_carries_the_oxygen_along_the_vessels_too() {
+    // The growth phase solves its oxygen with the same blood law as the delivery phase, so the
+    // tumour grows under the supply it is then dosed with; the delivery phase's first field
+    // again meets the Fick principle.
+    let text = format!(
+        "{}\n[growth]\nenabled = true\nduration_d = 0.25\ntime_step_h = 3.0\nsnapshot_interval_h = 3.0\n",
+        network(ALONG)
+    );
+    let s = sim(&text);
+    let ox = s.world.resource::<Oxygen>();
+    let p = s.world.resource::<OxygenParams>();
+    let consumed = consumption_rate(s.lattice(), p, ox);
+    assert!((ox.balance.delivered() / consumed - 1.0).abs() < 1e-3);
+    // The growth phase's last field (at t = 0) is the delivery phase's first.
+    let last = &s.world.resource::<GrowthHistory>().0.last().expect("growth frames").oxygen;
+    let inlet = p.along_vessels.unwrap().inlet * p.solubility;
+    let worst = last.iter().zip(&ox.concentration.data).map(|(a, b)| (a - b).abs()).fold(0.0, f64::max);
+    assert!(worst < 1e-3 * inlet, "growth and delivery fields differ by {} of the inlet level", worst / inlet);
 }

@@ -465,7 +465,12 @@ pub fn solve_now(world: &mut World) -> SimResult<()> {
         (world.get_resource::<Network>(), world.get_resource::<BloodFlow>(), world.get_resource::<VesselRaster>());
     let result = match (p.along_vessels, network) {
         (Some(law), (Some(net), Some(flow), Some(raster))) => {
-            solve_along(&l, &p, &law, (net, flow, raster), &mut st, &mut ox)
+            let (solver, inputs) = (&mut st.solver, &mut st.inputs);
+            let (c, levels) = (&mut ox.concentration.data, &mut ox.blood_pressure);
+            solve_along(&l, &p, &law, (net, flow, raster), solver, inputs, c, levels).map(|(r, b)| {
+                ox.balance = b;
+                r
+            })
         }
         _ => solve(&l, &st.inputs, &p, &mut st.solver, &mut ox.concentration.data),
     };
@@ -498,20 +503,26 @@ const BLOOD_TOLERANCE: f64 = 1e-2;
 /// [`ANDERSON_DEPTH`] (Anderson 1965, J ACM 12:547; Walker and Ni 2011, SIAM J Numer Anal
 /// 49:1715), clamped to partial pressures between 0 and the inlet's (or `c_b`'s, if higher).
 /// The tissue solves inside run a hundred times tighter than the rounds' tolerance.
-fn solve_along(
+///
+/// `inputs` holds the tissue's inputs with the walls of the perfused segments; `levels` the
+/// blood's partial pressure per segment (Pa), read as the start when it fits the network and
+/// left at the solution; `c` the tissue field (mol/m^3), warm start and solution.
+#[allow(clippy::too_many_arguments)]
+pub fn solve_along(
     l: &Lattice,
     p: &OxygenParams,
     law: &BloodOxygenLaw,
     (net, flow, raster): (&Network, &BloodFlow, &VesselRaster),
-    st: &mut OxygenState,
-    ox: &mut Oxygen,
-) -> SimResult<OxygenReport> {
+    solver: &mut Option<OxygenSolver>,
+    inputs: &mut OxygenInputs,
+    c: &mut [f64],
+    levels: &mut Vec<f64>,
+) -> SimResult<(OxygenReport, BloodBalance)> {
     let ns = net.segments.len();
-    let wall = &st.inputs.wall;
+    let wall = &inputs.wall;
     let walls = SegmentVoxels::build(raster, ns, p.permeability, |v| wall[v] > 0.0);
-    let mut levels = std::mem::take(&mut ox.blood_pressure);
     if levels.len() != ns {
-        levels = vec![p.blood / law.solubility; ns];
+        *levels = vec![p.blood / law.solubility; ns];
     }
     let (mut order, mut next) = (Vec::new(), Vec::new());
     let mut mixing = Anderson::new(ANDERSON_DEPTH);
@@ -526,7 +537,7 @@ fn solve_along(
     };
     let top = law.inlet.max(p.blood / law.solubility);
     for round in 1..=BLOOD_ROUNDS {
-        let shortfall = &mut st.inputs.shortfall;
+        let shortfall = &mut inputs.shortfall;
         shortfall.clear();
         shortfall.resize(l.len(), 0.0);
         for (s, &ps) in levels.iter().enumerate() {
@@ -536,23 +547,21 @@ fn solve_along(
                 }
             }
         }
-        let r = solve(l, &st.inputs, &tight, &mut st.solver, &mut ox.concentration.data)?;
+        let r = solve(l, inputs, &tight, solver, c)?;
         total.newton_iterations += r.newton_iterations;
         total.linear_iterations += r.linear_iterations;
         total.last_change = r.last_change;
-        ox.balance = march(net, flow, &walls, &ox.concentration.data, law, &mut order, &mut next);
+        let balance = march(net, flow, &walls, c, law, &mut order, &mut next);
         let change = levels.iter().zip(&next).map(|(a, b)| (a - b).abs()).fold(0.0, f64::max);
         total.blood_iterations = round;
         if change <= tolerance {
-            ox.blood_pressure = levels;
-            return Ok(total);
+            return Ok((total, balance));
         }
-        levels = mixing.next(&levels, &next);
-        for x in &mut levels {
+        *levels = mixing.next(levels, &next);
+        for x in levels.iter_mut() {
             *x = x.clamp(0.0, top);
         }
     }
-    ox.blood_pressure = levels;
     Err(SimError::Solver {
         what: "oxygen along the vessels: blood and tissue levels".into(),
         iterations: BLOOD_ROUNDS,

@@ -164,6 +164,8 @@ pub struct Grower<'a> {
     continuum_wall: Vec<f64>,
     tips: Vec<Tip>,
     solver: Option<OxygenSolver>,
+    /// Blood partial pressure per segment, Pa (oxygen carried along the vessels).
+    blood_levels: Vec<f64>,
     inputs: OxygenInputs,
     dist: Vec<u16>,
     queue: std::collections::VecDeque<u32>,
@@ -214,6 +216,7 @@ impl<'a> Grower<'a> {
             continuum_wall,
             tips: Vec::new(),
             solver: None,
+            blood_levels: Vec::new(),
             inputs: OxygenInputs::default(),
             dist: vec![FAR; n],
             queue: std::collections::VecDeque::new(),
@@ -249,7 +252,16 @@ impl<'a> Grower<'a> {
             }
         }
         oxygen::consumption(&self.kind, &self.state, self.ox, &mut self.inputs.vmax);
-        oxygen::solve(&self.l, &self.inputs, self.ox, &mut self.solver, &mut self.oxygen)?;
+        match (&self.ox.along_vessels, &self.network) {
+            (Some(law), Some((net, flow, raster, _))) => {
+                let parts = (&mut self.solver, &mut self.inputs, &mut self.oxygen[..], &mut self.blood_levels);
+                oxygen::solve_along(&self.l, self.ox, law, (net, flow, raster), parts.0, parts.1, parts.2, parts.3)?;
+            }
+            _ => {
+                self.inputs.shortfall.clear();
+                oxygen::solve(&self.l, &self.inputs, self.ox, &mut self.solver, &mut self.oxygen)?;
+            }
+        }
         oxygen::classify(&self.kind, &self.oxygen, self.ox, &mut self.state);
         Ok(())
     }
