@@ -1,8 +1,7 @@
 //! Consistency checks of the dose schedules: the keys each kind of `[[particle.dose]]` takes,
-//! doses inside the run, totals that fit the exact 64-bit particle counts, and boluses only for
-//! a measured plasma curve.
+//! doses inside the run, and totals that fit the exact 64-bit particle counts.
 
-use super::sections::{DoseKind, DoseSection, PlasmaModel, Scenario};
+use super::sections::{DoseKind, DoseSection, Scenario};
 use super::spec::Problem;
 
 /// Largest total dose of one design, particles (exact counts are u64, below 1.8e19).
@@ -48,7 +47,6 @@ impl Scenario {
                 );
             }
             let mut total = 0.0;
-            let mut infusions = 0;
             for (j, d) in p.dose.iter().enumerate() {
                 let path = |k: &str| format!("particle[{i}].dose[{j}].{k}");
                 let (kind, required, optional) = keys_of(d.kind);
@@ -93,9 +91,6 @@ impl Scenario {
                     }
                 };
                 total += n;
-                if d.kind == DoseKind::Infusion {
-                    infusions += 1;
-                }
                 let within = if d.kind == DoseKind::Infusion { last <= end * (1.0 + 1e-12) } else { last < end };
                 if !within {
                     let (key, what) = match d.kind {
@@ -124,17 +119,6 @@ impl Scenario {
                     format!("particle[{i}].dose"),
                     format!("{total:e} particles in all"),
                     format!("a schedule of at most {MAX_TOTAL:e} particles (exact 64-bit counts)"),
-                );
-            }
-            if p.plasma.model == PlasmaModel::Table && infusions > 0 {
-                push(
-                    format!("particle[{i}].plasma.model"),
-                    "\"table\"".into(),
-                    format!(
-                        "boluses only for a measured plasma curve (it is the response to one bolus, which \
-                         repeated boluses superpose); this design has {infusions} infusion(s): use \"design\" or \
-                         \"half-life\""
-                    ),
                 );
             }
         }

@@ -20,8 +20,10 @@
 //!   shape, the dose the scale. A rise between two samples is read as no elimination there. The
 //!   curve is the response to one bolus; repeated boluses superpose it (linear
 //!   pharmacokinetics): the particles of each bolus are kept apart ([`Cohort`]) and leave along
-//!   the curve timed from their own bolus. Particles withdrawn into the tissue are taken from the
-//!   cohorts, and those returned given to them, in proportion to their sizes.
+//!   the curve timed from their own bolus; an infusion is a bolus at the middle of each step it
+//!   runs (the midpoint rule of the superposition integral `R int f(t - u) du`). Particles
+//!   withdrawn into the tissue are taken from the cohorts, and those returned given to them, in
+//!   proportion to their sizes.
 //!
 //! Doses follow the design's [`DoseSchedule`] (see [`crate::vessels::dosing`]). A bolus given at
 //! the start of a step is eliminated over the whole step. Particles infused during a step
@@ -485,8 +487,8 @@ impl PlasmaPool {
                 self.cleared += gone;
             }
             Elimination::Table(tab) => {
-                // Validation keeps infusions away from measured curves (boluses only); were one
-                // given, its particles would count as a bolus at mid-step.
+                // The step's infused particles count as a bolus at mid-step (the midpoint rule
+                // of the superposition integral, second order in the step).
                 let (f0, f1) = (tab.fraction(0.0), tab.fraction(0.5 * dt));
                 let gone = s.binomial(n, if f0 > 0.0 { (1.0 - f1 / f0).clamp(0.0, 1.0) } else { 0.0 });
                 self.amount += n - gone;
