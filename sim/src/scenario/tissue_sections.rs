@@ -17,6 +17,20 @@ pub enum BloodTransport {
 }
 checked_plain!(BloodTransport);
 
+/// How the angiogenic signal of hypoxic cells is modelled in the growth phase.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum AngiogenicSignal {
+    /// Present within `sprout_reach_um` of a hypoxic cell, pointing down the distance to the
+    /// nearest one (a rule of this project's own).
+    Distance,
+    /// A steady signal released by hypoxic cells that diffuses and decays over
+    /// `signal_decay_length_um`; segments sprout where it exceeds `signal_sprout_threshold` and
+    /// tips climb its gradient.
+    Diffusing,
+}
+checked_plain!(AngiogenicSignal);
+
 section! {
     /// Tissue generator: a tumour mask from a file, stromal cells, and spatially correlated
     /// random fields (log-normal, mean 1) that modulate matrix density, receptor expression and
@@ -110,8 +124,19 @@ section! {
         cycle_time_h: f64 = 24.0, Check::closed(1.0, 1.0e4);
         /// Farthest a division pushes its neighbours to reach a free voxel, voxels.
         max_push_voxels: u32 = 4, Check::count(0.0, 64.0);
-        /// Reach of the angiogenic signal of hypoxic cells, micrometres.
+        /// Reach of the angiogenic signal of hypoxic cells, micrometres (angiogenic_signal =
+        /// "distance").
         sprout_reach_um: f64 = 200.0, Check::closed(0.0, 1.0e4);
+        /// "distance" (the signal is present within sprout_reach_um of a hypoxic cell) or
+        /// "diffusing" (a steady signal released by hypoxic cells, diffusing and decaying).
+        angiogenic_signal: AngiogenicSignal = AngiogenicSignal::Distance;
+        /// Decay length sqrt(D / k) of a diffusing signal, micrometres (growth factors such as
+        /// VEGF act over some 100 um; from memory).
+        signal_decay_length_um: f64 = 100.0, Check::closed(1.0, 1.0e4);
+        /// Level of a diffusing signal, relative to its level inside a large hypoxic region, from
+        /// which perfused segments sprout (hypoxic cells usually form thin shells, whose signal
+        /// stays near 0.1 even among them).
+        signal_sprout_threshold: f64 = 0.02, Check::above_upto(0.0, 1.0);
         /// Sprouting probability of a perfused segment within reach of hypoxic cells, per hour.
         sprout_rate_per_h: f64 = 0.02, Check::closed(0.0, 10.0);
         /// Length a sprout tip grows per growth step, micrometres.

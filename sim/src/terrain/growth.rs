@@ -27,6 +27,10 @@
 //!    0.1); a tip within `anastomosis_distance_um` of a node of another vessel joins it, which
 //!    lets blood through once the flow solve finds a pressure difference; a tip stops at
 //!    `max_sprout_length_um`. Blood flow and the wall raster are recomputed after each change.
+//!    With `angiogenic_signal = "diffusing"` the signal is instead a steady released factor that
+//!    diffuses and decays ([`angiogenic_signal`]: `s - L^2 lap(s) = 1` in hypoxic voxels, 0
+//!    elsewhere, `L = signal_decay_length_um`): segments sprout where it reaches
+//!    `signal_sprout_threshold` and tips climb its gradient.
 //! 4. Matrix: stromal cells deposit collagen in their voxel at `stromal_collagen_per_day`, up to
 //!    `max_collagen_fraction`.
 //!
@@ -50,7 +54,8 @@ use crate::lattice::Lattice;
 use crate::params::Params;
 use crate::process::oxygen::{self, HYPOXIC, NECROTIC, NO_CELL, OxygenInputs, OxygenParams, OxygenSolver, VIABLE};
 use crate::rng::{Domain, mix64, stream, stream_key};
-use crate::scenario::{Scenario, VesselModel};
+use crate::scenario::{AngiogenicSignal, Scenario, VesselModel};
+use crate::solver::{Solver, SolverOptions, Stencil7, Wall};
 use crate::tissue::{Cell, CellKind, CellLoad, Receptors, Regions, TUMOUR};
 use crate::units::{DAY, HOUR, UM};
 use crate::vessels::network::{Segment, VesselKind, dist};
@@ -80,6 +85,10 @@ pub struct GrowthParams {
     pub max_push: usize,
     /// Reach of the angiogenic signal, m.
     pub sprout_reach: f64,
+    /// The signal's model; decay length (m) and sprouting threshold of a diffusing one.
+    pub signal: AngiogenicSignal,
+    pub signal_length: f64,
+    pub signal_threshold: f64,
     /// Sprouting rate of a segment within reach, 1/s.
     pub sprout_rate: f64,
     /// Tip growth per step, m.
@@ -105,6 +114,9 @@ impl GrowthParams {
             cycle_time: g.cycle_time_h * HOUR,
             max_push: g.max_push_voxels as usize,
             sprout_reach: g.sprout_reach_um * UM,
+            signal: g.angiogenic_signal,
+            signal_length: g.signal_decay_length_um * UM,
+            signal_threshold: g.signal_sprout_threshold,
             sprout_rate: g.sprout_rate_per_h / HOUR,
             sprout_step: g.sprout_step_um * UM,
             sprout_radius: g.sprout_radius_um * UM,
@@ -142,6 +154,52 @@ struct Tip {
     own: Vec<u32>,
 }
 
+/// The operator of the diffusing angiogenic signal and its solver, built once per lattice.
+pub struct SignalSolver {
+    stencil: Stencil7,
+    solver: Solver,
+    rhs: Vec<f64>,
+}
+
+/// The steady diffusing signal of the hypoxic voxels: `s - L^2 lap(s) = 1` in a hypoxic voxel and
+/// `0` elsewhere, zero flux at the box faces (a released growth factor diffusing with `D` and
+/// decaying at rate `k`, `L = sqrt(D / k)`, scaled so that a large hypoxic region sits at 1;
+/// beside a hypoxic half-space it falls as `exp(-x / L) / 2`). Finite volumes on the shared
+/// multigrid-preconditioned solver, warm-started from `out`.
+pub fn angiogenic_signal(
+    l: &Lattice,
+    length: f64,
+    hypoxic: impl Fn(usize) -> bool,
+    state: &mut Option<SignalSolver>,
+    out: &mut Vec<f64>,
+) -> SimResult<()> {
+    let n = l.len();
+    out.resize(n, 0.0);
+    let vol = l.voxel_volume();
+    if state.is_none() {
+        let k = vec![length * length; n];
+        let (stencil, _) = Stencil7::from_conductivity(l.n, l.h, &k, &vec![vol; n], |_, _| Wall::ZeroFlux);
+        let options = SolverOptions { tolerance: 1e-8, max_iterations: 500, sweeps: 2 };
+        let solver = Solver::new(&stencil, options)
+            .map_err(|e| crate::process::pressure::solver_error("angiogenic signal", e, 1e-8))?;
+        *state = Some(SignalSolver { stencil, solver, rhs: vec![0.0; n] });
+    }
+    let st = state.as_mut().expect("built above");
+    let mut any = false;
+    for (v, r) in st.rhs.iter_mut().enumerate() {
+        *r = if hypoxic(v) { vol } else { 0.0 };
+        any |= *r > 0.0;
+    }
+    if !any {
+        out.iter_mut().for_each(|x| *x = 0.0);
+        return Ok(());
+    }
+    st.solver
+        .solve(&st.stencil, &st.rhs, out)
+        .map_err(|e| crate::process::pressure::solver_error("angiogenic signal", e, 1e-8))?;
+    Ok(())
+}
+
 /// The cells and the vessels being grown.
 pub struct Grower<'a> {
     l: Lattice,
@@ -166,6 +224,9 @@ pub struct Grower<'a> {
     solver: Option<OxygenSolver>,
     /// Blood partial pressure per segment, Pa (oxygen carried along the vessels).
     blood_levels: Vec<f64>,
+    /// A diffusing angiogenic signal (relative level) and its solver.
+    pub signal: Vec<f64>,
+    signal_solver: Option<SignalSolver>,
     inputs: OxygenInputs,
     dist: Vec<u16>,
     queue: std::collections::VecDeque<u32>,
@@ -217,6 +278,8 @@ impl<'a> Grower<'a> {
             tips: Vec::new(),
             solver: None,
             blood_levels: Vec::new(),
+            signal: Vec::new(),
+            signal_solver: None,
             inputs: OxygenInputs::default(),
             dist: vec![FAR; n],
             queue: std::collections::VecDeque::new(),
@@ -416,11 +479,33 @@ impl<'a> Grower<'a> {
             return false;
         }
         let reach = (self.g.sprout_reach / self.l.h).ceil() as usize;
-        let state = std::mem::take(&mut self.state);
-        self.distance_from(reach, |v| state[v] == HYPOXIC);
-        self.state = state;
+        let diffusing = self.g.signal == AngiogenicSignal::Diffusing;
+        if diffusing {
+            let state = &self.state;
+            // A failed solve leaves the signal as it was (the growth goes on without new sprouts).
+            let (l, length) = (&self.l, self.g.signal_length);
+            let r = angiogenic_signal(l, length, |v| state[v] == HYPOXIC, &mut self.signal_solver, &mut self.signal);
+            if r.is_err() {
+                self.signal.iter_mut().for_each(|x| *x = 0.0);
+            }
+        } else {
+            let state = std::mem::take(&mut self.state);
+            self.distance_from(reach, |v| state[v] == HYPOXIC);
+            self.state = state;
+        }
         let (l, g, seed, step) = (self.l.clone(), self.g, self.seed, self.step);
         let dist = &self.dist;
+        let signal = &self.signal;
+        // Where the signal makes a segment sprout, and how strong it is at a voxel (larger
+        // toward hypoxia).
+        let signalled = |v: usize| if diffusing { signal[v] >= g.signal_threshold } else { dist[v] != FAR };
+        let strength = |w: Option<usize>, here: usize| {
+            if diffusing {
+                signal[w.unwrap_or(here)]
+            } else {
+                -w.map_or(f64::from(dist[here]), |w| f64::from(dist[w].min(reach as u16 + 1)))
+            }
+        };
         let state = &self.state;
         let voxel = |x: [f64; 3]| l.voxel_of(x).map(|c| l.idx(c[0], c[1], c[2]));
         let Some((net, flow, ..)) = &mut self.network else { return false };
@@ -435,7 +520,7 @@ impl<'a> Grower<'a> {
                 continue;
             }
             let Some(v) = voxel(net.midpoint(s)) else { continue };
-            if dist[v] == FAR || state[v] == NECROTIC {
+            if !signalled(v) || state[v] == NECROTIC {
                 continue;
             }
             if stream(seed, Domain::Growth, TAG_SPROUT | s as u64, step).chance(p) {
@@ -455,8 +540,7 @@ impl<'a> Grower<'a> {
                 stream(seed, Domain::Growth, TAG_TIP | ((tip.own[0] as u64) << 20) | tip.own.len() as u64, step);
             let mut dir = [0.0f64; 3];
             for (a, d) in dir.iter_mut().enumerate() {
-                let at = |w: Option<usize>| w.map_or(dist[v] as f64, |w| dist[w].min(reach as u16 + 1) as f64);
-                *d = at(l.neighbour(v, a, false)) - at(l.neighbour(v, a, true));
+                *d = strength(l.neighbour(v, a, true), v) - strength(l.neighbour(v, a, false), v);
             }
             let norm = dir.iter().map(|d| d * d).sum::<f64>().sqrt();
             for d in dir.iter_mut() {

@@ -143,3 +143,25 @@ fn growth_is_identical_for_one_and_two_threads() {
     };
     assert!(grow_in(1) == grow_in(2));
 }
+
+#[test]
+fn a_diffusing_signal_falls_off_exponentially_beside_a_hypoxic_region() {
+    // s - L^2 s'' = 1 for x < x0 and 0 beyond, on a line: s = 1 - exp(-(x0 - x)/L)/2 inside and
+    // exp(-(x - x0)/L)/2 outside (the steady reaction-diffusion of a released, decaying factor;
+    // e.g. Crank 1975, section 14.2, from memory). A box of 80 x 2 x 2 voxels of 10 um, hypoxic
+    // below x0 = 400 um, L = 60 um: the faces lie more than 6 L away, and the second-order
+    // scheme's error (h/L)^2 / 12 is about 2e-3 (allowed: 4e-3).
+    let l = Lattice::new([80, 2, 2], 10.0 * UM, [0.0; 3]);
+    let length = 60.0 * UM;
+    let (mut state, mut s) = (None, Vec::new());
+    angiogenic_signal(&l, length, |v| l.ijk(v)[0] < 40, &mut state, &mut s).unwrap();
+    let x0 = 400.0 * UM;
+    for (v, &got) in s.iter().enumerate() {
+        let x = (l.ijk(v)[0] as f64 + 0.5) * l.h;
+        let want = if x < x0 { 1.0 - 0.5 * (-(x0 - x) / length).exp() } else { 0.5 * (-(x - x0) / length).exp() };
+        assert!((got - want).abs() < 4e-3, "x = {} um: {got} vs {want}", x / UM);
+    }
+    // No hypoxia, no signal.
+    angiogenic_signal(&l, length, |_| false, &mut state, &mut s).unwrap();
+    assert!(s.iter().all(|&x| x == 0.0));
+}
