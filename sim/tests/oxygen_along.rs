@@ -143,3 +143,23 @@ fn a_growth_phase_carries_the_oxygen_along_the_vessels_too() {
     let worst = last.iter().zip(&ox.concentration.data).map(|(a, b)| (a - b).abs()).fold(0.0, f64::max);
     assert!(worst < 1e-3 * inlet, "growth and delivery fields differ by {} of the inlet level", worst / inlet);
 }
+
+#[test]
+fn check_reports_the_inlet_blood_and_the_signal_length() {
+    // `interstice check` lines: the inlet's oxygen content with its saturation (Hill, as above),
+    // and a diffusing angiogenic signal's decay length in voxels.
+    let text = format!(
+        "{}\n[growth]\nenabled = true\nangiogenic_signal = \"diffusing\"\nsignal_decay_length_um = 120.0\n",
+        network(ALONG)
+    );
+    let loaded = LoadedScenario::from_text(Path::new("ox.toml"), text).unwrap();
+    let p = interstice_sim::params::Params::resolve_loaded(&loaded);
+    let mut out = Vec::new();
+    interstice_sim::terrain::check_lines(&p, &mut out);
+    let line = |name: &str| out.iter().find(|d| d.name == name).unwrap_or_else(|| panic!("no line {name}"));
+    let inlet = line("inlet blood oxygen");
+    assert!((inlet.value - law().content(95.0 * MMHG)).abs() < 1e-12 * inlet.value);
+    assert!(inlet.note.contains("96.8 % saturated"), "{}", inlet.note);
+    let signal = line("signal decay length");
+    assert!((signal.value - 120.0).abs() < 1e-9 && signal.note.contains("6.0 voxels"), "{}", signal.note);
+}

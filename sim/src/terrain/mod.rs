@@ -111,7 +111,32 @@ pub fn check_lines(p: &Params, out: &mut Vec<crate::check::Derived>) {
     ));
     out.push(d("oxygen", "blood oxygen", o.blood, "mol/m3", "c_b = solubility x blood pO2"));
     out.push(d("oxygen", "max consumption", o.vmax, "mol/(m3 s)", "Vmax of a voxel full of living cells"));
+    if let Some(law) = &o.along_vessels {
+        out.push(d(
+            "oxygen",
+            "inlet blood oxygen",
+            law.content(law.inlet),
+            "mol/m3",
+            &format!(
+                "carried along the vessels: alpha P + H S(P) at the inlet, {:.1} % saturated (Hill)",
+                100.0 * law.saturation(law.inlet)
+            ),
+        ));
+    }
     let g = &p.growth;
+    if g.enabled && g.signal == crate::scenario::AngiogenicSignal::Diffusing {
+        out.push(d(
+            "growth",
+            "signal decay length",
+            g.signal_length * 1e6,
+            "um",
+            &format!(
+                "diffusing angiogenic signal, {:.1} voxels; sprouts where it reaches {}",
+                g.signal_length / p.lattice.h,
+                g.signal_threshold
+            ),
+        ));
+    }
     if g.enabled {
         out.push(d("growth", "growth steps", (g.duration / g.time_step).ceil(), "1", "before dosing"));
         out.push(d("growth", "doublings", g.duration / g.cycle_time, "1", "unconstrained, duration / cycle time"));
