@@ -528,15 +528,18 @@ pub fn solve_along(
     let mut mixing = Anderson::new(ANDERSON_DEPTH);
     let mut total = OxygenReport::default();
     let tolerance = BLOOD_TOLERANCE * p.newton_tolerance * law.inlet;
-    // Tissue solves a hundred times tighter than the rounds, so that their rounding does not
-    // stall the mixing.
-    let tight = OxygenParams {
-        newton_tolerance: 1e-2 * tolerance / law.inlet,
-        solver_tolerance: (1e-3 * p.solver_tolerance).max(1e-12),
-        ..p.clone()
-    };
+    // Tissue solves a hundred times tighter than the rounds' last change (and in the end than
+    // their tolerance), so that their rounding does not stall the mixing while early rounds stay
+    // cheap.
+    let mut last = 1.0f64;
     let top = law.inlet.max(p.blood / law.solubility);
     for round in 1..=BLOOD_ROUNDS {
+        let rel = 1e-2 * last.max(tolerance / law.inlet);
+        let tight = OxygenParams {
+            newton_tolerance: rel.min(p.newton_tolerance),
+            solver_tolerance: (1e-1 * rel).clamp(1e-12, p.solver_tolerance),
+            ..p.clone()
+        };
         let shortfall = &mut inputs.shortfall;
         shortfall.clear();
         shortfall.resize(l.len(), 0.0);
@@ -553,6 +556,7 @@ pub fn solve_along(
         total.last_change = r.last_change;
         let balance = march(net, flow, &walls, c, law, &mut order, &mut next);
         let change = levels.iter().zip(&next).map(|(a, b)| (a - b).abs()).fold(0.0, f64::max);
+        last = change / law.inlet;
         total.blood_iterations = round;
         if change <= tolerance {
             return Ok((total, balance));

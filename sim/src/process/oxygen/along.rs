@@ -12,9 +12,9 @@
 //!
 //! (the Fick principle for the segment: what the blood loses crosses its wall into the voxels
 //! `v` it passes, of tissue level `c_v`, wall area `A_v` and oxygen permeability `P_w`), solved
-//! for the segment's partial pressure `P` by bisection: the left side falls and the right side
-//! rises with `P`, so the root is unique, and it lies between 0 and the larger of `C_in / alpha`
-//! and the tissue's partial pressures. Nodes are visited in descending blood pressure (blood
+//! for the segment's partial pressure `P` by Newton's method safeguarded by bisection: the left
+//! side falls and the right side rises with `P`, so the root is unique, and it lies between 0 and
+//! the larger of `C_in / alpha` and the tissue's partial pressures. Nodes are visited in descending blood pressure (blood
 //! runs downhill, so every segment feeding a node is done before the node); a node mixes what
 //! its perfused inflowing segments bring, flow-weighted, and blood entering from the boundary
 //! has the inlet partial pressure. The tissue then sees each segment's wall at `alpha P`.
@@ -49,14 +49,15 @@ impl BloodOxygenLaw {
         x / (1.0 + x)
     }
 
-    /// `dC/dP` at partial pressure `p`, mol/(m^3 Pa).
+    /// `C(p)` and `dC/dP` at partial pressure `p` together (one power).
     #[inline]
-    pub fn slope(&self, p: f64) -> f64 {
+    pub fn content_and_slope(&self, p: f64) -> (f64, f64) {
         if p <= 0.0 {
-            return self.solubility;
+            return (0.0, self.solubility);
         }
         let x = (p / self.p50).powf(self.hill);
-        self.solubility + self.capacity * self.hill * x / (p * (1.0 + x) * (1.0 + x))
+        let s = x / (1.0 + x);
+        (self.solubility * p + self.capacity * s, self.solubility + self.capacity * self.hill * s / (p * (1.0 + x)))
     }
 
     /// Oxygen per volume of blood at partial pressure `p`, mol/m^3.
@@ -140,23 +141,32 @@ pub fn segment_pressure(
         kc_sum += k * tissue[v];
         c_max = c_max.max(tissue[v]);
     }
-    let g = |p: f64| q * (c_in - law.content(p)) - (k_sum * a * p - kc_sum);
+    // g(P) = Q (C_in - C(P)) - (K a P - sum k c), falling; its root by Newton's method kept
+    // inside the bracket [lo, hi] (a bisection where a step would leave it).
+    let g = |p: f64| {
+        let (c, dc) = law.content_and_slope(p);
+        (q * (c_in - c) - (k_sum * a * p - kc_sum), -q * dc - k_sum * a)
+    };
     let (mut lo, mut hi) = (0.0, (c_in / a).max(c_max / a));
-    if g(hi) >= 0.0 {
+    if g(hi).0 >= 0.0 {
         return hi;
     }
-    for _ in 0..200 {
-        let mid = 0.5 * (lo + hi);
-        if mid <= lo || mid >= hi {
-            break;
-        }
-        if g(mid) > 0.0 {
-            lo = mid;
+    let mut x = 0.5 * hi;
+    for _ in 0..100 {
+        let (gx, dg) = g(x);
+        if gx > 0.0 {
+            lo = x;
         } else {
-            hi = mid;
+            hi = x;
         }
+        let newton = x - gx / dg;
+        let next = if newton > lo && newton < hi && dg < 0.0 { newton } else { 0.5 * (lo + hi) };
+        if (next - x).abs() <= 1e-13 * hi.max(1e-300) || next == x {
+            return next;
+        }
+        x = next;
     }
-    0.5 * (lo + hi)
+    x
 }
 
 /// The partial pressure of the blood in every segment (Pa; 0 in unperfused ones), marched from
