@@ -483,17 +483,15 @@ fn update_continuum_walls(world: &mut World) {
         }
         pore.iter().zip(base).map(|(r, r0)| r / r0).collect::<Vec<f64>>()
     };
-    let wall = {
-        let ivs = world.resource::<Interventions>();
-        ivs.continuum.as_ref().map(|(_, w)| w.with_pore_factors(&factor))
-    };
+    if world.resource::<ContinuumPores>().factor == factor {
+        return;
+    }
+    let wall = world.resource::<Interventions>().continuum.as_ref().map(|(_, w)| w.with_pore_factors(&factor));
     let mut pores = world.resource_mut::<ContinuumPores>();
-    if pores.factor != factor {
-        pores.factor = factor;
-        pores.revision += 1;
-        if let Some(wall) = wall {
-            world.insert_resource(wall);
-        }
+    pores.factor = factor;
+    pores.revision += 1;
+    if let Some(wall) = wall {
+        world.insert_resource(wall);
     }
 }
 

@@ -57,7 +57,7 @@ use crate::vessels::network::Network;
 pub mod along;
 use crate::world::{Faults, Phase};
 pub use along::{BloodBalance, BloodOxygenLaw};
-use along::{SegmentVoxels, march};
+use along::{MarchOrder, SegmentVoxels, march};
 
 /// Oxygen parameters in SI (concentrations mol/m^3).
 #[derive(Resource, Debug, Clone, PartialEq)]
@@ -524,7 +524,8 @@ pub fn solve_along(
     if levels.len() != ns {
         *levels = vec![p.blood / law.solubility; ns];
     }
-    let (mut order, mut next) = (Vec::new(), Vec::new());
+    let order = MarchOrder::new(net, flow);
+    let mut next = Vec::new();
     let mut mixing = Anderson::new(ANDERSON_DEPTH);
     let mut total = OxygenReport::default();
     let tolerance = BLOOD_TOLERANCE * p.newton_tolerance * law.inlet;
@@ -554,7 +555,7 @@ pub fn solve_along(
         total.newton_iterations += r.newton_iterations;
         total.linear_iterations += r.linear_iterations;
         total.last_change = r.last_change;
-        let balance = march(net, flow, &walls, c, law, &mut order, &mut next);
+        let balance = march(net, flow, &order, &walls, c, law, &mut next);
         let change = levels.iter().zip(&next).map(|(a, b)| (a - b).abs()).fold(0.0, f64::max);
         last = change / law.inlet;
         total.blood_iterations = round;

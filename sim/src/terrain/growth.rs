@@ -173,15 +173,16 @@ pub fn angiogenic_signal(
     state: &mut Option<SignalSolver>,
     out: &mut Vec<f64>,
 ) -> SimResult<()> {
+    const TOLERANCE: f64 = 1e-8;
+    let failed = |e| crate::process::pressure::solver_error("angiogenic signal", e, TOLERANCE);
     let n = l.len();
     out.resize(n, 0.0);
     let vol = l.voxel_volume();
     if state.is_none() {
         let k = vec![length * length; n];
         let (stencil, _) = Stencil7::from_conductivity(l.n, l.h, &k, &vec![vol; n], |_, _| Wall::ZeroFlux);
-        let options = SolverOptions { tolerance: 1e-8, max_iterations: 500, sweeps: 2 };
-        let solver = Solver::new(&stencil, options)
-            .map_err(|e| crate::process::pressure::solver_error("angiogenic signal", e, 1e-8))?;
+        let options = SolverOptions { tolerance: TOLERANCE, max_iterations: 500, sweeps: 2 };
+        let solver = Solver::new(&stencil, options).map_err(failed)?;
         *state = Some(SignalSolver { stencil, solver, rhs: vec![0.0; n] });
     }
     let st = state.as_mut().expect("built above");
@@ -194,9 +195,7 @@ pub fn angiogenic_signal(
         out.iter_mut().for_each(|x| *x = 0.0);
         return Ok(());
     }
-    st.solver
-        .solve(&st.stencil, &st.rhs, out)
-        .map_err(|e| crate::process::pressure::solver_error("angiogenic signal", e, 1e-8))?;
+    st.solver.solve(&st.stencil, &st.rhs, out).map_err(failed)?;
     Ok(())
 }
 

@@ -169,26 +169,41 @@ pub fn segment_pressure(
     x
 }
 
+/// The order a march visits the network in: the segments at each node ([`Network::incidence`])
+/// and the nodes from the highest blood pressure down. It depends on the network and its flow
+/// only, so it is made once for all the rounds of a solve.
+#[derive(Debug, Clone, Default)]
+pub struct MarchOrder {
+    at: Vec<usize>,
+    list: Vec<u32>,
+    nodes: Vec<u32>,
+}
+
+impl MarchOrder {
+    pub fn new(net: &Network, flow: &BloodFlow) -> Self {
+        let (at, list) = net.incidence();
+        let p = &flow.node_pressure;
+        let mut nodes: Vec<u32> = (0..net.nodes.len() as u32).filter(|&i| p[i as usize].is_finite()).collect();
+        nodes.sort_by(|&i, &j| p[j as usize].total_cmp(&p[i as usize]).then(i.cmp(&j)));
+        MarchOrder { at, list, nodes }
+    }
+}
+
 /// The partial pressure of the blood in every segment (Pa; 0 in unperfused ones), marched from
-/// the inlets with the tissue field `tissue` (mol/m^3); returns the network's oxygen balance.
+/// the inlets in `order` with the tissue field `tissue` (mol/m^3); returns the network's oxygen
+/// balance.
 pub fn march(
     net: &Network,
     flow: &BloodFlow,
+    order: &MarchOrder,
     walls: &SegmentVoxels,
     tissue: &[f64],
     law: &BloodOxygenLaw,
-    order: &mut Vec<u32>,
     out: &mut Vec<f64>,
 ) -> BloodBalance {
-    let ns = net.segments.len();
     out.clear();
-    out.resize(ns, 0.0);
-    // Segments at each node, and the nodes from the highest blood pressure down.
-    let nn = net.nodes.len();
-    let (at, list) = net.incidence();
-    order.clear();
-    order.extend((0..nn as u32).filter(|&i| flow.node_pressure[i as usize].is_finite()));
-    order.sort_by(|&i, &j| flow.node_pressure[j as usize].total_cmp(&flow.node_pressure[i as usize]).then(i.cmp(&j)));
+    out.resize(net.segments.len(), 0.0);
+    let MarchOrder { at, list, nodes } = order;
     let mut balance = BloodBalance::default();
     let c_inlet = law.content(law.inlet);
     // Flow of segment `s` into node `n` (positive in, negative out).
@@ -196,7 +211,7 @@ pub fn march(
         let seg = &net.segments[s];
         if seg.b == n { flow.flow[s] } else { -flow.flow[s] }
     };
-    for &n in order.iter() {
+    for &n in nodes {
         let segs = &list[at[n as usize]..at[n as usize + 1]];
         let (mut q_in, mut content, mut q_out) = (0.0, 0.0, 0.0);
         for &s in segs {
